@@ -1,0 +1,261 @@
+"""Harmonic families: fundamentals whose integer multiples explain several peaks.
+
+A clock or a switching converter shows in a spectrum as a comb n·f0. The
+engineer wants "these seven peaks are the 25 MHz PHY clock", not seven
+unrelated peaks, so :func:`find_families` groups peaks into families.
+
+How a family is chosen (greedy, best first):
+
+1. Candidates for f0: each of the strongest peaks divided by 1..16 (the first
+   order is often missing or below the scan's start), plus the spacing of
+   neighbouring strong peaks and half of it (an odd-only comb is spaced 2·f0).
+2. Every candidate is scored against every unclaimed peak at once (numpy
+   broadcasting). Peak f matches order n = round(f/f0) when
+   ``|f − n·f0| ≤ max(2·resolution, rel_tol·f, width/2)``, n ≤ max_order. The
+   first two terms are the issue's rule ("the larger of 2 resolution steps and
+   0.2 %"); half the peak's width is added because a wide (spread-spectrum)
+   peak's reported frequency can sit anywhere on its plateau. One peak per
+   order (the closest). f0 is refined twice by least squares over its matches,
+   f0 = Σ n·f / Σ n², and the peaks matched again.
+3. Simplest explanation first: a candidate's score is its number of matched
+   orders minus 0.5 × the orders it predicts between its lowest and highest
+   matched order that are not there (for an odd-only set, only the missing odd
+   orders count: a 50 % duty clock has no even ones). A sub-harmonic f0/k
+   explains every peak f0 does but leaves gaps, so it wins only by explaining
+   strictly more peaks, enough to fill its gaps: f0/2 over a family of m
+   orders needs more than (m − 1)/3 extra (odd-order) peaks. Two round-number
+   clocks (16 MHz and a lone 40 MHz peak) therefore do not merge into an
+   8 MHz family, while 16, 24, 32, 40, 48 MHz do. Ties go to the higher f0.
+4. A family must have at least ``min_peaks`` orders and be unlikely to be a
+   coincidence: with p_j = min(1, 2·tol_j/f0) the chance that peak j falls on
+   some multiple, the number of chance matches is about Poisson with mean
+   Σ p_j, and the family is kept only if P(≥ its count) ≤ ``false_alarm``.
+   Tiny fundamentals, whose dense combs catch random peaks, fail this test.
+5. The chosen family's peaks are removed and the search repeats, up to
+   ``max_families`` times.
+
+Spread spectrum: a spread clock turns each harmonic into a plateau whose width
+grows with the order (±0.5 % or down-spread 1 % of n·f0). A family is flagged
+``spread_spectrum`` when its peaks' widths (minus the resolution) fit
+width ≈ k·n with k/f0 ≥ 0.2 %, each peak within a factor 2 of that line, the
+proportional fit beats a constant width (a narrow line's width is the
+resolution bandwidth, the same at every order), and the median width is at
+least 5 resolution steps (when the resolution is known).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+from numpy.typing import ArrayLike
+from scipy import stats
+
+from analysis.errors import TraceError
+from analysis.types import Family, Peak
+
+# Lowest visible order tried for a missing-first-order family (f/1 .. f/16).
+_MAX_DIVISOR = 16
+# Candidates are seeded from the strongest peaks only; all peaks are matched.
+_MAX_SEEDS = 64
+# Score lost per order a family predicts inside its span but does not show.
+_GAP_PENALTY = 0.5
+_REFINE_PASSES = 2
+# Spread-spectrum criterion (see the module docstring).
+_SPREAD_MIN_FRACTION = 0.002
+_SPREAD_MIN_WIDTH_OVER_RESOLUTION = 5.0
+_SPREAD_RATIO_LIMIT = 2.0
+
+
+def find_families(
+    peaks: Sequence[Peak],
+    *,
+    resolution_hz: float | ArrayLike = 0.0,
+    rel_tol: float = 0.002,
+    min_peaks: int = 3,
+    max_order: int = 50,
+    max_families: int = 10,
+    false_alarm: float = 1e-3,
+) -> tuple[Family, ...]:
+    """Group peaks into harmonic families, best explanation first.
+
+    ``resolution_hz`` is the frequency step (bin spacing or RBW), one value or
+    one per peak. Each peak belongs to at most one family; peaks that fit no
+    family are left out. Returns families in the order they were chosen (the
+    best-scoring first), each with its refined fundamental, its sorted orders
+    and the matched peaks' frequencies in order. Raises TraceError on bad input.
+    """
+    _check_options(rel_tol, min_peaks, max_order, max_families, false_alarm)
+    if not peaks:
+        return ()
+    frequency_hz, prominence_db, width_hz = _peak_arrays(peaks)
+    resolution = _per_peak(resolution_hz, frequency_hz.size)
+
+    # Work on peaks sorted by frequency: orders are then non-decreasing along
+    # each candidate's row, which makes "one peak per order" a run operation.
+    by_frequency = np.argsort(frequency_hz, kind="stable")
+    f = frequency_hz[by_frequency]
+    width = width_hz[by_frequency]
+    res = resolution[by_frequency]
+    known_width = np.where(np.isfinite(width) & (width > 0), width, 0.0)
+    tol = np.maximum(np.maximum(2.0 * res, rel_tol * f), 0.5 * known_width)
+
+    candidates = _candidates(f, prominence_db[by_frequency])
+    claimed = np.zeros(f.size, dtype=bool)
+    families: list[Family] = []
+    while len(families) < max_families and (~claimed).sum() >= min_peaks:
+        active = ~claimed
+        f0 = candidates
+        for _ in range(_REFINE_PASSES):
+            orders, ok = _match(f0, f, tol, active, max_order)
+            f0 = _refine(f0, f, orders, ok)
+        orders, ok = _match(f0, f, tol, active, max_order)
+        count = ok.sum(axis=1)
+        score = _score(orders, ok, count)
+        expected = _chance_matches(f0, f, tol, active, max_order)
+        p_chance = stats.poisson.sf(count - 1, expected)
+        valid = (count >= min_peaks) & (p_chance <= false_alarm)
+        if not valid.any():
+            break
+        idx = np.flatnonzero(valid)
+        # Best score, ties to the higher fundamental (the simpler comb).
+        best = idx[np.lexsort((-f0[idx], -score[idx]))[0]]
+        row = ok[best]
+        n = orders[best, row]
+        fundamental = float(np.sum(n * f[row]) / np.sum(n * n))
+        families.append(
+            Family(
+                fundamental_hz=fundamental,
+                orders=tuple(int(v) for v in n),
+                odd_only=bool(n.size >= 3 and np.all(n % 2 == 1)),
+                spread_spectrum=_is_spread(n, width[row], res[row], fundamental),
+                peak_frequencies_hz=tuple(float(v) for v in f[row]),
+            )
+        )
+        claimed |= row
+    return tuple(families)
+
+
+def _check_options(
+    rel_tol: float, min_peaks: int, max_order: int, max_families: int, false_alarm: float
+) -> None:
+    if not (np.isfinite(rel_tol) and rel_tol >= 0):
+        raise TraceError(f"harmonic tolerance must be a fraction ≥ 0, got {rel_tol!r}")
+    if int(min_peaks) < 1 or int(max_order) < 1 or int(max_families) < 0:
+        raise TraceError(
+            "harmonic search needs min_peaks ≥ 1, max_order ≥ 1 and max_families ≥ 0, "
+            f"got {min_peaks}, {max_order}, {max_families}"
+        )
+    if not (0 < false_alarm <= 1):
+        raise TraceError(f"false-alarm probability must be in (0, 1], got {false_alarm!r}")
+
+
+def _peak_arrays(peaks: Sequence[Peak]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    frequency_hz = np.array([p.frequency_hz for p in peaks], dtype=float)
+    prominence_db = np.array([p.prominence_db for p in peaks], dtype=float)
+    width_hz = np.array([p.width_hz for p in peaks], dtype=float)
+    bad = ~(np.isfinite(frequency_hz) & (frequency_hz > 0))
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        raise TraceError(f"peak {i + 1}: frequency must be a positive number, got {frequency_hz[i]}")
+    return frequency_hz, np.nan_to_num(prominence_db, nan=0.0), width_hz
+
+
+def _per_peak(value: float | ArrayLike, size: int) -> np.ndarray:
+    arr = np.asarray(value, dtype=float)
+    if arr.ndim == 0:
+        arr = np.full(size, float(arr))
+    if arr.shape != (size,):
+        raise TraceError(f"resolution must be one value or one per peak ({size}), got {arr.shape}")
+    if not np.all(np.isfinite(arr) & (arr >= 0)):
+        raise TraceError("resolution must be a non-negative frequency step in Hz")
+    return arr
+
+
+def _candidates(f: np.ndarray, prominence_db: np.ndarray) -> np.ndarray:
+    """Trial fundamentals seeded from the strongest peaks (see module docstring)."""
+    seeds = np.sort(f[np.argsort(-prominence_db, kind="stable")[:_MAX_SEEDS]])
+    divided = (seeds[:, None] / np.arange(1, _MAX_DIVISOR + 1)[None, :]).ravel()
+    spacing = np.diff(seeds)
+    spacing = spacing[spacing > 0]
+    return np.unique(np.concatenate([divided, spacing, spacing / 2.0]))
+
+
+def _match(
+    f0: np.ndarray, f: np.ndarray, tol: np.ndarray, active: np.ndarray, max_order: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """Orders (C, N) and the match mask, keeping one peak (the closest) per order."""
+    orders = np.rint(f[None, :] / f0[:, None]).astype(np.int64)
+    deviation = np.abs(f[None, :] - orders * f0[:, None])
+    ok = active[None, :] & (orders >= 1) & (orders <= max_order) & (deviation <= tol[None, :])
+
+    # Peaks sharing an order sit next to each other in a row (f is sorted), so
+    # group runs of equal order and keep the smallest deviation of each run.
+    rows, cols = ok.shape
+    key = np.where(ok, orders, -1 - np.arange(cols)[None, :])
+    run_start = np.ones_like(ok)
+    run_start[:, 1:] = key[:, 1:] != key[:, :-1]
+    run_start = run_start.ravel()
+    starts = np.flatnonzero(run_start)
+    run_id = np.cumsum(run_start) - 1
+    dev = np.where(ok, deviation, np.inf).ravel()
+    closest = dev == np.minimum.reduceat(dev, starts)[run_id]
+    # Exact ties: keep the first of the run.
+    first = np.zeros(rows * cols, dtype=bool)
+    hits = np.flatnonzero(closest & ok.ravel())
+    _, first_hit = np.unique(run_id[hits], return_index=True)
+    first[hits[first_hit]] = True
+    return orders, first.reshape(rows, cols)
+
+
+def _refine(f0: np.ndarray, f: np.ndarray, orders: np.ndarray, ok: np.ndarray) -> np.ndarray:
+    """Least-squares fundamental Σ n·f / Σ n² per candidate; unmatched rows unchanged."""
+    n = np.where(ok, orders, 0).astype(float)
+    denominator = np.sum(n * n, axis=1)
+    numerator = np.sum(n * f[None, :], axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(denominator > 0, numerator / denominator, f0)
+
+
+def _score(orders: np.ndarray, ok: np.ndarray, count: np.ndarray) -> np.ndarray:
+    """Matched orders minus a penalty for orders missing inside the span."""
+    big = np.iinfo(np.int64).max
+    lowest = np.where(ok, orders, big).min(axis=1)
+    highest = np.where(ok, orders, 0).max(axis=1)
+    odd_only = ~np.any(ok & (orders % 2 == 0), axis=1)
+    span = np.where(count > 0, highest - lowest, 0)
+    possible = np.where(odd_only, span // 2 + 1, span + 1)
+    missing = np.where(count > 0, possible - count, 0)
+    return count - _GAP_PENALTY * missing
+
+
+def _chance_matches(
+    f0: np.ndarray, f: np.ndarray, tol: np.ndarray, active: np.ndarray, max_order: int
+) -> np.ndarray:
+    """Expected number of peaks falling on a multiple of f0 by chance."""
+    reach = active[None, :] & (f[None, :] <= (max_order + 0.5) * f0[:, None])
+    p = np.minimum(1.0, 2.0 * tol[None, :] / f0[:, None])
+    return np.sum(np.where(reach, p, 0.0), axis=1)
+
+
+def _is_spread(
+    orders: np.ndarray, width_hz: np.ndarray, resolution_hz: np.ndarray, fundamental_hz: float
+) -> bool:
+    """Spread-spectrum criterion of the module docstring."""
+    if orders.size < 2 or not np.all(np.isfinite(width_hz) & (width_hz > 0)):
+        return False
+    if np.any(resolution_hz > 0) and np.median(width_hz) < (
+        _SPREAD_MIN_WIDTH_OVER_RESOLUTION * np.median(resolution_hz)
+    ):
+        return False
+    n = orders.astype(float)
+    excess = np.clip(width_hz - resolution_hz, 0.0, None)
+    k = float(np.sum(n * excess) / np.sum(n * n))
+    if k <= 0 or k / fundamental_hz < _SPREAD_MIN_FRACTION:
+        return False
+    ratio = excess / (k * n)
+    if np.any(ratio < 1 / _SPREAD_RATIO_LIMIT) or np.any(ratio > _SPREAD_RATIO_LIMIT):
+        return False
+    sse_proportional = float(np.sum((excess - k * n) ** 2))
+    sse_constant = float(np.sum((excess - excess.mean()) ** 2))
+    return sse_proportional < sse_constant
