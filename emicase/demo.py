@@ -16,6 +16,7 @@ case gives the signature search something to find.
 from __future__ import annotations
 
 import datetime as dt
+import io
 
 import numpy as np
 from django.contrib.auth import get_user_model
@@ -72,12 +73,16 @@ def receiver_trace(
     return f, 10 * np.log10(power)
 
 
+def _csv(header: list[str], columns: list[np.ndarray], fmt: list[str]) -> bytes:
+    out = io.StringIO()
+    out.write("\n".join(header) + "\n")
+    np.savetxt(out, np.column_stack(columns), fmt=fmt, delimiter=",")
+    return out.getvalue().encode("utf-8")
+
+
 def trace_csv(f: np.ndarray, level: np.ndarray, *, unit: str, preamble: dict[str, str]) -> bytes:
-    lines = [f"# {k}: {v}" for k, v in preamble.items()]
-    lines.append(f"Frequency (MHz),Level ({unit})")
-    body = np.column_stack([f / 1e6, level])
-    text = "\n".join(lines) + "\n" + "\n".join(f"{a:.6f},{b:.2f}" for a, b in body)
-    return text.encode("utf-8")
+    header = [f"# {k}: {v}" for k, v in preamble.items()] + [f"Frequency (MHz),Level ({unit})"]
+    return _csv(header, [f / 1e6, level], ["%.6f", "%.2f"])
 
 
 def _distance_mm(a: tuple[float, float], b: tuple[float, float]) -> float:
@@ -104,9 +109,7 @@ def scope_record(*, n: int = 262144, rate_hz: float = 1e9, seed: int) -> bytes:
     for k in (1, 3, 5, 7, 9):  # a square-ish clock: odd harmonics 4A/(πk)
         v += 0.004 * 4 / (np.pi * k) * np.sin(2 * np.pi * 25e6 * k * t)
     v += 0.0008 * np.sin(2 * np.pi * 2.2e6 * t) + rng.normal(0, 2e-5, n)
-    lines = ["# scope: demo bench oscilloscope", "Time (s),Voltage (V)"]
-    text = "\n".join(lines) + "\n" + "\n".join(f"{a:.12e},{b:.7e}" for a, b in zip(t, v, strict=True))
-    return text.encode("utf-8")
+    return _csv(["# scope: demo bench oscilloscope", "Time (s),Voltage (V)"], [t, v], ["%.12e", "%.7e"])
 
 
 def _file(name: str, content: bytes) -> ContentFile:

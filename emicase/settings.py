@@ -119,6 +119,9 @@ else:
             "TEST": {"NAME": str(VAR_DIR / "test-emicase.sqlite3")},
         }
     }
+# A worker started by the test suite must open the suite's test database.
+if os.environ.get("EMICASE_DATABASE_NAME"):
+    DATABASES["default"]["NAME"] = os.environ["EMICASE_DATABASE_NAME"]
 DEFAULT_AUTO_FIELD = "django.db.models.BigAutoField"
 
 AUTH_PASSWORD_VALIDATORS = [
@@ -135,6 +138,7 @@ USE_TZ = True
 
 STATIC_URL = "static/"
 STATIC_ROOT = Path(os.environ.get("EMICASE_STATIC_ROOT", VAR_DIR / "static")).resolve()
+STATIC_ROOT.mkdir(parents=True, exist_ok=True)
 STATICFILES_FINDERS = [
     "django.contrib.staticfiles.finders.FileSystemFinder",
     "django.contrib.staticfiles.finders.AppDirectoriesFinder",
@@ -204,7 +208,7 @@ if envbool("EMICASE_TLS", not DEBUG):
     CSRF_COOKIE_SECURE = True
     SECURE_HSTS_SECONDS = envint("EMICASE_HSTS_SECONDS", 31536000)
     SECURE_HSTS_INCLUDE_SUBDOMAINS = True
-    SECURE_HSTS_PRELOAD = envbool("EMICASE_HSTS_PRELOAD", False)
+    SECURE_HSTS_PRELOAD = envbool("EMICASE_HSTS_PRELOAD", True)
 SECURE_CONTENT_TYPE_NOSNIFF = True
 SECURE_REFERRER_POLICY = "same-origin"
 X_FRAME_OPTIONS = "DENY"

@@ -92,6 +92,7 @@ def case_close(
     if closure == Case.Closure.FIXED:
         if countermeasure is None:
             raise ValidationError({"countermeasure": "Closing as fixed needs the countermeasure that fixed it."})
+        countermeasure = Countermeasure.objects.get(pk=countermeasure.pk)  # judge its stored state
         if countermeasure.case_id != case.pk:
             raise ValidationError({"countermeasure": "That countermeasure belongs to another case."})
         if countermeasure.status != Countermeasure.Status.VERIFIED:
