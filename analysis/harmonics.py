@@ -26,11 +26,15 @@ How a family is chosen (greedy, best first):
    orders needs more than (m − 1)/3 extra (odd-order) peaks. Two round-number
    clocks (16 MHz and a lone 40 MHz peak) therefore do not merge into an
    8 MHz family, while 16, 24, 32, 40, 48 MHz do. Ties go to the higher f0.
-4. A family must have at least ``min_peaks`` orders and be unlikely to be a
-   coincidence: with p_j = min(1, 2·tol_j/f0) the chance that peak j falls on
-   some multiple, the number of chance matches is about Poisson with mean
-   Σ p_j, and the family is kept only if P(≥ its count) ≤ ``false_alarm``.
-   Tiny fundamentals, whose dense combs catch random peaks, fail this test.
+4. A family must have at least ``min_peaks`` orders, at least half of the
+   orders it predicts between its lowest and highest must be present (a comb
+   built from chance coincidences is mostly holes), and it must be unlikely
+   to be a coincidence: a peak j inside the family's span falls on one of its
+   orders by chance with probability p_j = min(1, 2·tol_j/f0) (tol_j/f0 for an
+   odd-only comb, which offers half the slots); the number of such chance
+   matches is about Poisson with mean Σ p_j, and the family is kept only if
+   P(≥ its count) ≤ ``false_alarm`` (per candidate). Tiny fundamentals, whose
+   dense combs catch random peaks, fail this test.
 5. The chosen family's peaks are removed and the search repeats, up to
    ``max_families`` times.
 
@@ -108,21 +112,23 @@ def find_families(
         f0 = candidates
         for _ in range(_REFINE_PASSES):
             orders, ok = _match(f0, f, tol, active, max_order)
-            f0 = _refine(f0, f, orders, ok)
+            f0 = _refine(f0, f, tol, orders, _best_comb(orders, ok)[0])
         orders, ok = _match(f0, f, tol, active, max_order)
-        count = ok.sum(axis=1)
-        score = _score(orders, ok, count)
-        expected = _chance_matches(f0, f, tol, active, max_order)
+        keep, score, missing, highest, odd = _best_comb(orders, ok)
+        count = keep.sum(axis=1)
+        expected = _chance_matches(f0, f, tol, active, highest, odd)
         p_chance = stats.poisson.sf(count - 1, expected)
-        valid = (count >= min_peaks) & (p_chance <= false_alarm)
+        valid = (count >= min_peaks) & (missing <= count) & (p_chance <= false_alarm)
         if not valid.any():
             break
         idx = np.flatnonzero(valid)
         # Best score, ties to the higher fundamental (the simpler comb).
         best = idx[np.lexsort((-f0[idx], -score[idx]))[0]]
-        row = ok[best]
+        row = keep[best]
         n = orders[best, row]
-        fundamental = float(np.sum(n * f[row]) / np.sum(n * n))
+        fundamental = float(
+            _refine(f0[best : best + 1], f, tol, orders[best : best + 1], keep[best : best + 1])[0]
+        )
         families.append(
             Family(
                 fundamental_hz=fundamental,
@@ -157,7 +163,9 @@ def _peak_arrays(peaks: Sequence[Peak]) -> tuple[np.ndarray, np.ndarray, np.ndar
     bad = ~(np.isfinite(frequency_hz) & (frequency_hz > 0))
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
-        raise TraceError(f"peak {i + 1}: frequency must be a positive number, got {frequency_hz[i]}")
+        raise TraceError(
+            f"peak {i + 1}: frequency must be a positive number, got {frequency_hz[i]}"
+        )
     return frequency_hz, np.nan_to_num(prominence_db, nan=0.0), width_hz
 
 
@@ -208,34 +216,80 @@ def _match(
     return orders, first.reshape(rows, cols)
 
 
-def _refine(f0: np.ndarray, f: np.ndarray, orders: np.ndarray, ok: np.ndarray) -> np.ndarray:
-    """Least-squares fundamental Σ n·f / Σ n² per candidate; unmatched rows unchanged."""
+def _refine(
+    f0: np.ndarray, f: np.ndarray, tol: np.ndarray, orders: np.ndarray, ok: np.ndarray
+) -> np.ndarray:
+    """Weighted least-squares fundamental per candidate; unmatched rows unchanged.
+
+    Minimises Σ ((f − n·f0) / tol)², i.e. f0 = Σ w·n·f / Σ w·n² with w = 1/tol².
+    As tol grows with f, every order's relative deviation counts about equally;
+    the plain Σ n·f / Σ n² would let one stray high-order match drag f0.
+    """
+    weight = 1.0 / np.maximum(tol, 1e-9 * f) ** 2
     n = np.where(ok, orders, 0).astype(float)
-    denominator = np.sum(n * n, axis=1)
-    numerator = np.sum(n * f[None, :], axis=1)
+    denominator = np.sum(weight * n * n, axis=1)
+    numerator = np.sum(weight * n * f[None, :], axis=1)
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.where(denominator > 0, numerator / denominator, f0)
 
 
-def _score(orders: np.ndarray, ok: np.ndarray, count: np.ndarray) -> np.ndarray:
-    """Matched orders minus a penalty for orders missing inside the span."""
-    big = np.iinfo(np.int64).max
-    lowest = np.where(ok, orders, big).min(axis=1)
-    highest = np.where(ok, orders, 0).max(axis=1)
-    odd_only = ~np.any(ok & (orders % 2 == 0), axis=1)
-    span = np.where(count > 0, highest - lowest, 0)
-    possible = np.where(odd_only, span // 2 + 1, span + 1)
-    missing = np.where(count > 0, possible - count, 0)
-    return count - _GAP_PENALTY * missing
+def _best_comb(
+    orders: np.ndarray, ok: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The simplest comb inside each candidate's matches.
+
+    Two readings are scored: all matched orders, or the odd ones only (a stray
+    even-order coincidence must not turn a 50 % duty clock into a gappy
+    all-orders comb). In each, the comb is cut above the order that maximises
+    score = matched − 0.5 × missing, where missing counts the orders (odd
+    orders for an odd-only comb) between the lowest and the cut that have no
+    peak: a chance match far above the family would otherwise add a long run
+    of holes. Returns the kept mask and, per row, the score, the missing count,
+    the highest kept order and whether the comb is odd-only.
+    """
+    rows, cols = ok.shape
+    best_score = np.full(rows, -np.inf)
+    best_cut = np.full(rows, -1)
+    best_odd = np.zeros(rows, dtype=bool)
+    for odd_reading in (False, True):
+        mask = ok & (orders % 2 == 1) if odd_reading else ok
+        count = np.cumsum(mask, axis=1)
+        first = np.argmax(mask, axis=1)
+        lowest = orders[np.arange(rows), first][:, None]
+        span = orders - lowest
+        possible = span // 2 + 1 if odd_reading else span + 1
+        score = np.where(mask, count - _GAP_PENALTY * (possible - count), -np.inf)
+        # Ties go to the longer comb: more peaks explained for the same score.
+        cut = cols - 1 - np.argmax(score[:, ::-1], axis=1)
+        row_best = score[np.arange(rows), cut]
+        better = row_best > best_score
+        best_score = np.where(better, row_best, best_score)
+        best_cut = np.where(better, cut, best_cut)
+        best_odd = np.where(better, odd_reading, best_odd)
+    has = best_cut >= 0
+    keep = ok & (np.arange(cols)[None, :] <= best_cut[:, None]) & has[:, None]
+    keep &= ~best_odd[:, None] | (orders % 2 == 1)
+    count = keep.sum(axis=1)
+    highest = np.where(keep, orders, 0).max(axis=1)
+    score = np.where(has, best_score, -np.inf)
+    missing = np.where(has, count - best_score, 0.0) / _GAP_PENALTY
+    return keep, score, missing, highest, best_odd
 
 
 def _chance_matches(
-    f0: np.ndarray, f: np.ndarray, tol: np.ndarray, active: np.ndarray, max_order: int
+    f0: np.ndarray,
+    f: np.ndarray,
+    tol: np.ndarray,
+    active: np.ndarray,
+    highest: np.ndarray,
+    odd_only: np.ndarray,
 ) -> np.ndarray:
-    """Expected number of peaks falling on a multiple of f0 by chance."""
-    reach = active[None, :] & (f[None, :] <= (max_order + 0.5) * f0[:, None])
-    p = np.minimum(1.0, 2.0 * tol[None, :] / f0[:, None])
-    return np.sum(np.where(reach, p, 0.0), axis=1)
+    """Expected number of peaks up to the family's highest order that would
+    fall on one of its orders by chance (an odd-only comb offers half the slots)."""
+    inside = active[None, :] & (f[None, :] <= (highest[:, None] + 0.5) * f0[:, None])
+    slots = np.where(odd_only, 1.0, 2.0)[:, None]
+    p = np.minimum(1.0, slots * tol[None, :] / f0[:, None])
+    return np.sum(np.where(inside, p, 0.0), axis=1)
 
 
 def _is_spread(
