@@ -79,6 +79,8 @@ def attribute(
         )
 
     cand = _candidates(source_hz, source_tol, int(max_order), int(max_terms), int(max_harmonic))
+    if cand.hz.size == 0:
+        return ()
     result: list[Attribution] = []
     chunk = max(1, _CELLS_PER_CHUNK // max(1, cand.hz.size))
     for start in range(0, frequency_hz.size, chunk):
@@ -137,8 +139,8 @@ class _Candidates:
         self.source_idx = source_idx[order]
         self.orders = orders[order]
         # Dense rank of (terms, total order): equal rank = equally simple.
-        key = n_terms[order] * (total.max() + 1) + total[order]
-        self.rank = np.concatenate([[0], np.cumsum(np.diff(key) != 0)]).astype(np.int64)
+        key = n_terms[order] * (total.max(initial=0) + 1) + total[order]
+        self.rank = np.cumsum(np.r_[0, np.diff(key)] != 0).astype(np.int64)
 
 
 def _candidates(

@@ -98,6 +98,8 @@ def test_orders_that_cannot_be_told_apart_are_not_used():
     loose = Source("loose buck", 2.2 * MHZ, 220e3)
     assert attribute([peak(8.8 * MHZ)], [loose])  # order 4: 0.88 MHz < 1.1 MHz
     assert attribute([peak(11 * MHZ)], [loose]) == ()  # order 5: 1.1 MHz, not < 1.1 MHz
+    # A source known only to ± half its frequency explains nothing at all.
+    assert attribute([peak(2.2 * MHZ)], [Source("vague", 2.2 * MHZ, 1.1 * MHZ)]) == ()
 
 
 def test_results_keep_the_peak_order_and_skip_the_unexplained():
