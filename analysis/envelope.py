@@ -59,7 +59,9 @@ def bucket_starts(x: np.ndarray, *, max_points: int, log_x: bool) -> np.ndarray:
     hi = np.log10(x[-1])
     head = np.zeros(1 if n_positive_from > 0 else 0, dtype=np.int64)
     budget = n_target - head.size
-    if hi <= lo or budget < 1:
+    if budget < 1:  # room for one bucket only
+        return np.zeros(1, dtype=np.int64)
+    if hi <= lo:
         return np.r_[head, n_positive_from].astype(np.int64)
 
     def starts_for(n_buckets: int) -> np.ndarray:

@@ -101,6 +101,16 @@ def test_a_short_trace_comes_back_unchanged():
     assert x[0] == 1e6
 
 
+@pytest.mark.parametrize("max_points", [2, 3, 4, 5, 10])
+@pytest.mark.parametrize("log_x", [True, False])
+def test_tiny_budgets_are_respected_with_a_dc_sample(max_points, log_x):
+    x = np.r_[0.0, np.linspace(1.0, 100.0, 50)]
+    y = np.arange(51.0)
+    xe, ye = envelope(x, y, max_points=max_points, log_x=log_x)
+    assert 1 <= xe.size <= max_points
+    assert ye.max() == 50.0 and ye.min() == 0.0
+
+
 def test_bad_input_raises_a_trace_error():
     with pytest.raises(TraceError, match="one length"):
         envelope(np.arange(10.0), np.arange(9.0))
