@@ -14,6 +14,7 @@ are scipy's, and tests/analysis/test_fft.py checks the samples against
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -167,6 +168,50 @@ def window_figures(window: str, n: int) -> WindowFigures:
     if n < 2:
         raise TraceError(f"window figures need at least two samples, not {n}")
     return figures_of_samples(periodic_window(window, n))
+
+
+def _window_for_enbw(enbw_bins: float) -> str | None:
+    """Which of WINDOWS has this ENBW (in bins), if any.
+
+    A periodic cosine-sum window of more than 2·(terms) samples has ENBW
+    (a0² + ½·Σa_m²)/a0² exactly, and ours differ in the third digit, so a
+    spectrum's rbw_hz / bin width names its window.
+    """
+    for window, a in _COSINE_COEFFICIENTS.items():
+        exact = (a[0] ** 2 + 0.5 * sum(x * x for x in a[1:])) / a[0] ** 2
+        if abs(enbw_bins - exact) <= 1e-6 * exact:
+            return window
+    return None
+
+
+@functools.cache
+def _leakage_table(window: str) -> tuple[np.ndarray, np.ndarray]:
+    # The window's response |W(u)|/W(0) to a sine u bins away, in the limit of
+    # many samples: each cosine term shifts a sinc by ±m bins.
+    a = _COSINE_COEFFICIENTS[window]
+    u = np.arange(0.0, 4096.0 + 1 / 16, 1 / 16)
+    response = a[0] * np.sinc(u)
+    for m, am in enumerate(a[1:], start=1):
+        response += 0.5 * am * (np.sinc(u - m) + np.sinc(u + m))
+    level_db = 20.0 * np.log10(np.abs(response) / a[0] + 1e-300)
+    # Envelope: the most a sine can leak at u bins or farther.
+    return u, np.maximum.accumulate(level_db[::-1])[::-1]
+
+
+def leakage_envelope_db(enbw_bins: float, offset_bins: np.ndarray) -> np.ndarray | None:
+    """The most a sine leaks, relative to its own level, into bins at least
+    ``offset_bins`` away, for the window whose ENBW is ``enbw_bins``; None if
+    no window of WINDOWS has that ENBW. Beyond 4096 bins the value at 4096
+    bins is returned (an over-estimate: leakage only falls further out).
+
+    The peak finder uses it to tell a strong sine's sidelobes (Hann: −31 dB
+    at 1.5 bins, rectangular: −13 dB; flat-top −93 dB) from emissions.
+    """
+    window = _window_for_enbw(enbw_bins)
+    if window is None:
+        return None
+    u, envelope = _leakage_table(window)
+    return np.interp(np.abs(offset_bins), u, envelope)
 
 
 def _check_record(record: TimeRecord) -> tuple[np.ndarray, float]:

@@ -1,0 +1,658 @@
+"""Noise floor, peaks and readings of a spectrum.
+
+Two kinds of spectra arrive: receiver traces (thousands of log-spaced points,
+already smoothed by the RBW and detector) and FFT spectra of scope records
+(millions of linear bins whose floor is Rayleigh noise). One peak finder
+serves both; what differs is how far above the floor a point must stand
+before it can be an emission rather than noise.
+
+The work is sized for the FFT case: everything that touches every point is a
+single vectorised pass (a bucket maximum), and the floor, local maxima and
+prominences are computed only around the few points that stand above the
+detection threshold.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.signal
+import scipy.special
+from numpy.typing import ArrayLike
+
+from analysis.errors import TraceError
+from analysis.fft import leakage_envelope_db
+from analysis.types import Peak, Spectrum
+
+# The floor is a median over buckets 0.02 decade wide (4.7 % in frequency,
+# wider than a ±0.5 % or 1 % spread-spectrum plateau, so the plateau does not
+# lift its own floor) holding at least 64 points (where bins are sparse in log
+# frequency, i.e. the low end of an FFT spectrum, a window's main lobe then
+# still covers a minority of the bucket).
+_BUCKET_DECADES = 0.02
+_MIN_BUCKET_POINTS = 64
+# A bucket's median is estimated from at most this many of its points (a
+# 1024-sample median of Rayleigh noise is good to ±0.2 dB).
+_MAX_MEDIAN_SAMPLES = 1024
+# Quasi-random sample positions (golden-ratio sequence): unlike a fixed
+# stride they cannot lock onto a harmonic comb and sample only its lines.
+_SAMPLE_FRACTIONS = np.modf(np.arange(1, _MAX_MEDIAN_SAMPLES + 1) * ((math.sqrt(5.0) - 1.0) / 2.0))[
+    0
+]
+# 1.4826·MAD estimates σ of Gaussian data.
+_MAD_TO_SIGMA = 1.482602218505602
+# Width is measured where the level has fallen this far below the peak (the
+# 6 dB bandwidth receivers are specified by; on a noisy plateau 3 dB dips
+# would cut the width short).
+WIDTH_DROP_DB = 6.0
+
+
+@dataclass(frozen=True)
+class _FloorModel:
+    starts: np.ndarray  # first index of each bucket
+    stops: np.ndarray  # one past its last index
+    centre_log_hz: np.ndarray  # log10 of each bucket's centre frequency
+    median: np.ndarray  # median level of each bucket
+    spread_db: float  # robust σ of the level about the floor (1.4826·MAD), NaN if not computed
+
+
+def _check_spectrum(spectrum: Spectrum) -> tuple[np.ndarray, np.ndarray]:
+    frequency_hz = np.asarray(spectrum.frequency_hz, dtype=np.float64)
+    level = np.asarray(spectrum.level, dtype=np.float64)
+    if frequency_hz.ndim != 1 or level.shape != frequency_hz.shape:
+        raise TraceError(
+            f"a spectrum needs one frequency per level, got shapes {frequency_hz.shape} "
+            f"and {level.shape}"
+        )
+    if frequency_hz.size and not frequency_hz[0] > 0:
+        raise TraceError("a spectrum's frequencies must be above 0 Hz")
+    return frequency_hz, level
+
+
+def _require_numbers(level: np.ndarray) -> None:
+    # np.max propagates NaN: one pass, no temporary.
+    if math.isnan(float(level.max())):
+        raise TraceError("the spectrum has levels that are not numbers (NaN)")
+
+
+def _bucket_bounds(frequency_hz: np.ndarray) -> np.ndarray:
+    """Bucket edges (indices, 0 … n): 0.02-decade buckets merged until each
+    holds at least 64 points.
+
+    Works on edges only (O(buckets)): a coordinate that advances by
+    min(1, points/64) per log bucket is cut at integer steps, so where log
+    buckets are crowded they stay as they are and where they are sparse
+    several merge into one of about 64 points.
+    """
+    n = frequency_hz.size
+    lo, hi = math.log10(frequency_hz[0]), math.log10(frequency_hz[-1])
+    k = max(1, math.ceil((hi - lo) / _BUCKET_DECADES))
+    inner = np.searchsorted(frequency_hz, 10.0 ** (lo + _BUCKET_DECADES * np.arange(1, k)))
+    edges = np.unique(np.concatenate(([0], inner, [n])))
+    coordinate = np.concatenate(
+        ([0.0], np.cumsum(np.minimum(1.0, np.diff(edges) / _MIN_BUCKET_POINTS)))
+    )
+    buckets = max(1, int(coordinate[-1] + 1e-9))
+    cuts = np.interp(np.linspace(0.0, coordinate[-1], buckets + 1), coordinate, edges)
+    return np.unique(np.rint(cuts).astype(np.intp))
+
+
+def _bucket_medians(
+    level: np.ndarray, starts: np.ndarray, lengths: np.ndarray
+) -> tuple[np.ndarray, list[np.ndarray]]:
+    """Median level of each bucket, and the samples it was taken from (rows
+    of samples; +inf pads the rows of buckets with fewer points)."""
+    median = np.empty(starts.size)
+    samples: list[np.ndarray] = []
+    crowded = lengths > _MAX_MEDIAN_SAMPLES
+    if crowded.any():
+        # Full rows share their middle positions: a partition suffices.
+        offsets = (_SAMPLE_FRACTIONS[None, :] * lengths[crowded, None]).astype(np.intp)
+        offsets += starts[crowded, None]
+        values = level[offsets]
+        middle = [(_MAX_MEDIAN_SAMPLES - 1) // 2, _MAX_MEDIAN_SAMPLES // 2]
+        values.partition(middle, axis=1)
+        median[crowded] = 0.5 * (values[:, middle[0]] + values[:, middle[1]])
+        samples.append(values)
+    if not crowded.all():
+        count = lengths[~crowded]
+        width = int(count.max())
+        j = np.arange(width)
+        valid = j[None, :] < count[:, None]
+        values = level[starts[~crowded, None] + np.where(valid, j[None, :], 0)]
+        values[~valid] = np.inf
+        values.sort(axis=1)
+        rows = np.arange(count.size)
+        median[~crowded] = 0.5 * (values[rows, (count - 1) // 2] + values[rows, count // 2])
+        samples.append(values)
+    return median, samples
+
+
+def _floor_model(
+    frequency_hz: np.ndarray, level: np.ndarray, *, spread: bool = False
+) -> _FloorModel:
+    """Bucket medians of the level; with ``spread``, also the robust σ of the
+    level about them (only receiver traces need it)."""
+    bounds = _bucket_bounds(frequency_hz)
+    starts, stops = bounds[:-1], bounds[1:]
+    lengths = stops - starts
+    median, samples = _bucket_medians(level, starts, lengths)
+    spread_db = math.nan
+    if spread:
+        crowded = lengths > _MAX_MEDIAN_SAMPLES
+        rows_median = [m for m in (median[crowded], median[~crowded]) if m.size]
+        deviation = np.concatenate(
+            [np.abs(v - m[:, None]).ravel() for v, m in zip(samples, rows_median, strict=True)]
+        )
+        spread_db = _MAD_TO_SIGMA * float(np.median(deviation[np.isfinite(deviation)]))
+    log_f = np.log10(frequency_hz[np.concatenate((starts, stops - 1))])
+    centre = 0.5 * (log_f[: starts.size] + log_f[starts.size :])
+    return _FloorModel(starts, stops, centre, median, spread_db)
+
+
+def _floor_at(model: _FloorModel, frequency_hz: np.ndarray, index: np.ndarray) -> np.ndarray:
+    """The floor at the given indices: bucket medians interpolated in log f."""
+    return np.interp(np.log10(frequency_hz[index]), model.centre_log_hz, model.median)
+
+
+def noise_floor(spectrum: Spectrum) -> np.ndarray:
+    """A robust local noise floor, one value per point, in the spectrum's unit.
+
+    Running median in log frequency: medians over buckets 0.02 decade wide
+    (merged to at least 64 points where points are sparse), interpolated
+    linearly in log f between bucket centres and held flat beyond the first
+    and last. Narrow emissions, harmonic combs and spread-spectrum plateaus
+    up to a few percent wide do not lift it.
+    """
+    frequency_hz, level = _check_spectrum(spectrum)
+    if frequency_hz.size == 0:
+        return np.empty(0)
+    _require_numbers(level)
+    model = _floor_model(frequency_hz, level)
+    return _floor_at(model, frequency_hz, np.arange(frequency_hz.size))
+
+
+def detection_threshold_db(spectrum: Spectrum, *, false_alarm: float = 1e-4) -> float:
+    """How far above the median floor noise alone reaches with probability
+    ``false_alarm`` anywhere in the spectrum (the expected number of noise
+    points above it is ``false_alarm``).
+
+    FFT spectra: bin magnitudes of noise are Rayleigh-distributed, so a bin
+    exceeds k times the median magnitude with probability 2^(−k²) =
+    exp(−ln2·k²). Asking that n bins together exceed with probability at most
+    ``false_alarm`` (union bound; neighbouring bins are correlated by the
+    window, which only makes the bound safer) gives n·2^(−k²) = false_alarm,
+    k² = log2(n/false_alarm), i.e. 10·log10(log2(n/false_alarm)) dB: 15.5 dB
+    for 5 million bins at 1e-4, 14.4 dB for 10,000.
+
+    Receiver traces: the detector has averaged the noise, whose spread in dB
+    is treated as Gaussian with σ estimated robustly (1.4826·MAD about the
+    floor): z·σ with z the one-sided Gaussian quantile of false_alarm/n
+    (5.6σ for 10,001 points). A noise-free trace gives 0.
+    """
+    frequency_hz, level = _check_spectrum(spectrum)
+    _check_false_alarm(false_alarm)
+    if frequency_hz.size == 0:
+        return 0.0
+    return _statistical_threshold(
+        spectrum.from_fft, frequency_hz.size, false_alarm, None, frequency_hz, level
+    )
+
+
+def _check_false_alarm(false_alarm: float) -> None:
+    if not (isinstance(false_alarm, int | float) and 0 < false_alarm < 1):
+        raise TraceError(f"false_alarm must be a probability between 0 and 1, not {false_alarm!r}")
+
+
+def _statistical_threshold(
+    from_fft: bool,
+    n: int,
+    false_alarm: float,
+    model: _FloorModel | None,
+    frequency_hz: np.ndarray,
+    level: np.ndarray,
+) -> float:
+    per_point = false_alarm / n
+    if from_fft:
+        return 10.0 * math.log10(max(1.0, math.log2(1.0 / per_point)))
+    if model is None or math.isnan(model.spread_db):
+        model = _floor_model(frequency_hz, level, spread=True)
+    z = float(-scipy.special.ndtri(per_point))
+    return max(0.0, z) * model.spread_db
+
+
+def _fractional_frequency(frequency_hz: np.ndarray, position: np.ndarray) -> np.ndarray:
+    """Frequency at fractional indices, interpolated between neighbours."""
+    base = np.clip(np.floor(position).astype(np.intp), 0, frequency_hz.size - 2)
+    fraction = position - base
+    return frequency_hz[base] + fraction * (frequency_hz[base + 1] - frequency_hz[base])
+
+
+def _candidates(
+    frequency_hz: np.ndarray, level: np.ndarray, model: _FloorModel, threshold_db: float
+) -> np.ndarray:
+    """Indices whose level exceeds the floor by more than threshold_db.
+
+    One pass over every point (a per-bucket maximum) finds the buckets that
+    can hold such a point: the interpolated floor over a bucket never drops
+    below the lowest of its own and its neighbours' medians. The exact floor
+    is then evaluated in those buckets only.
+    """
+    bucket_max = np.maximum.reduceat(level, model.starts)
+    if np.isnan(bucket_max).any():
+        raise TraceError("the spectrum has levels that are not numbers (NaN)")
+    padded = np.concatenate((model.median[:1], model.median, model.median[-1:]))
+    lowest_floor = np.minimum(np.minimum(padded[:-2], padded[1:-1]), padded[2:])
+    bound = lowest_floor + threshold_db
+    hot = np.flatnonzero(bucket_max > bound)
+    if hot.size == 0:
+        return np.empty(0, dtype=np.intp)
+    # Per hot bucket (a loop over buckets, not points): the points above the
+    # bucket's bound, then the exact floor at those few.
+    pieces = [
+        model.starts[b] + np.flatnonzero(level[model.starts[b] : model.stops[b]] > bound[b])
+        for b in hot
+    ]
+    index = np.concatenate(pieces)
+    above = level[index] > _floor_at(model, frequency_hz, index) + threshold_db
+    return index[above]
+
+
+def _topography(
+    frequency_hz: np.ndarray, level: np.ndarray, model: _FloorModel, candidates: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Local maxima among the candidates, their prominence and the floor there.
+
+    Works on a compressed copy: the candidates and their immediate neighbours,
+    levels clipped from below at the floor, and one point at floor level
+    standing for each stretch left out (everything left out is below the
+    threshold, and noise in it reaches down to the floor). On it
+    ``scipy.signal.find_peaks`` finds the local maxima (plateaus give their
+    middle point, as scipy does) and ``scipy.signal.peak_prominences`` the
+    prominences — the same as on the full spectrum clipped at its floor, at
+    the cost of a few points per candidate.
+    """
+    n = level.size
+    neighbourhood = np.unique(np.concatenate((candidates - 1, candidates, candidates + 1)))
+    neighbourhood = neighbourhood[(neighbourhood >= 0) & (neighbourhood < n)]
+    floor = _floor_at(model, frequency_hz, neighbourhood)
+    clipped = np.maximum(level[neighbourhood], floor)
+
+    gap_after = np.flatnonzero(np.diff(neighbourhood) > 1)
+    insert_at = [gap_after + 1]
+    insert_value = [np.minimum(floor[gap_after], floor[gap_after + 1])]
+    if neighbourhood[0] > 0:
+        insert_at.insert(0, np.array([0]))
+        insert_value.insert(0, floor[:1])
+    if neighbourhood[-1] < n - 1:
+        insert_at.append(np.array([neighbourhood.size]))
+        insert_value.append(floor[-1:])
+    positions = np.concatenate(insert_at)
+    compressed = np.insert(clipped, positions, np.concatenate(insert_value))
+    origin = np.insert(neighbourhood, positions, -1)
+
+    maxima, _ = scipy.signal.find_peaks(compressed)
+    maxima = maxima[origin[maxima] >= 0]
+    prominence = scipy.signal.peak_prominences(compressed, maxima)[0]
+    index = origin[maxima]
+    peak_floor = floor[np.searchsorted(neighbourhood, index)]
+    return index, prominence, peak_floor
+
+
+def _width_bounds(
+    level: np.ndarray, index: np.ndarray, reference: np.ndarray, bridge_points: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Fractional indices where the level around each peak falls below its
+    reference for good: the run of points above the reference that holds
+    the peak, with dips of at most ``bridge_points`` points bridged (noise on
+    a plateau dips 6 dB below its highest point every few points; a genuine
+    edge stays down), each end interpolated linearly between the last point
+    above and the first below.
+
+    Each peak is examined in a window of ±64 points, widened eightfold for
+    the peaks whose run reaches the window's edge, up to ±65,536 points
+    (beyond that the width is cut there).
+    """
+    n = level.size
+    left = np.empty(index.size)
+    right = np.empty(index.size)
+    todo = np.arange(index.size)
+    half = 64
+    while todo.size:
+        offsets = np.arange(-half, half + 1)
+        position = index[todo, None] + offsets[None, :]
+        inside = (position >= 0) & (position < n)
+        values = level[np.clip(position, 0, n - 1)]
+        ref = reference[todo, None]
+        above = inside & (values > ref)
+        columns = np.arange(offsets.size)
+        previous_above = np.maximum.accumulate(np.where(above, columns, -1), axis=1)
+        next_above = np.minimum.accumulate(np.where(above, columns, offsets.size)[:, ::-1], axis=1)[
+            :, ::-1
+        ]
+        gap = next_above - previous_above - 1
+        bridged = (previous_above >= 0) & (next_above < offsets.size)
+        bridged &= gap <= bridge_points[todo, None]
+        broken = ~(above | (inside & bridged))
+        centre = half
+        left_break = np.max(np.where(broken[:, :centre], columns[:centre], -1), axis=1)
+        right_break = np.min(
+            np.where(broken[:, centre + 1 :], columns[centre + 1 :], offsets.size), axis=1
+        )
+        rows = np.arange(todo.size)
+        # A break found, or the window already spans the spectrum's end.
+        left_done = (left_break >= 0) | (index[todo] - half <= 0)
+        right_done = (right_break < offsets.size) | (index[todo] + half >= n - 1)
+        done = (left_done & right_done) | (half >= 65_536)
+
+        lb = np.maximum(left_break, 0)
+        rb = np.minimum(right_break, offsets.size - 1)
+        lb_value, lb_next = values[rows, lb], values[rows, np.minimum(lb + 1, offsets.size - 1)]
+        rb_value, rb_prev = values[rows, rb], values[rows, np.maximum(rb - 1, 0)]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            left_fraction = np.clip((ref[:, 0] - lb_value) / (lb_next - lb_value), 0.0, 1.0)
+            right_fraction = np.clip((ref[:, 0] - rb_value) / (rb_prev - rb_value), 0.0, 1.0)
+        left_position = np.where(
+            (left_break >= 0) & inside[rows, lb],
+            position[rows, lb] + left_fraction,
+            np.maximum(position[:, 0], 0),
+        )
+        right_position = np.where(
+            (right_break < offsets.size) & inside[rows, rb],
+            position[rows, rb] - right_fraction,
+            np.minimum(position[:, -1], n - 1),
+        )
+        left[todo[done]] = left_position[done]
+        right[todo[done]] = right_position[done]
+        todo = todo[~done]
+        half *= 8
+    return left, right
+
+
+def _refine(
+    frequency_hz: np.ndarray,
+    level: np.ndarray,
+    index: np.ndarray,
+    floor: np.ndarray,
+    width_bins: np.ndarray,
+    enbw_bins: float | None,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Frequency and level of FFT peaks between bins.
+
+    With the window's ENBW known: the power centroid over the main lobe
+    (±⌈ENBW⌉ bins), with the floor's mean noise power per bin (the Rayleigh
+    median power / ln 2) taken off each bin. By Parseval a sine's lobe holds
+    ENBW × its power, so the summed power / ENBW is the sine's level and the
+    centroid its frequency, to 0.005 bin and 0.01 dB for the cosine windows
+    (a 3-point parabola on dB values is off by 0.14 bin and 0.16 dB on the
+    flat-top's flattened lobe). Peaks wider at −6 dB than twice the ENBW are
+    not single sines (a sine measures 1.2–1.4 × ENBW) and keep their highest
+    point.
+
+    Without it: a parabola through the dB values of the three points around
+    the maximum.
+    """
+    n = level.size
+    if enbw_bins is None:
+        left = level[np.maximum(index - 1, 0)]
+        centre = level[index]
+        right = level[np.minimum(index + 1, n - 1)]
+        curvature = left - 2.0 * centre + right
+        with np.errstate(divide="ignore", invalid="ignore"):
+            offset = np.where(curvature < 0, 0.5 * (left - right) / curvature, 0.0)
+        offset = np.clip(offset, -0.5, 0.5)
+        edge = (index == 0) | (index == n - 1)
+        offset[edge] = 0.0
+        step = 0.5 * (
+            frequency_hz[np.minimum(index + 1, n - 1)] - frequency_hz[np.maximum(index - 1, 0)]
+        )
+        return frequency_hz[index] + offset * step, centre - 0.25 * (left - right) * offset
+
+    half_lobe = max(1, math.ceil(enbw_bins - 1e-9))
+    span = np.arange(-half_lobe, half_lobe + 1)
+    window = index[:, None] + span[None, :]
+    inside = (window >= 0) & (window < n)
+    window = np.clip(window, 0, n - 1)
+    noise_power = np.power(10.0, floor / 10.0) / math.log(2.0)
+    power = np.where(inside, np.power(10.0, level[window] / 10.0) - noise_power[:, None], 0.0)
+    total = power.sum(axis=1)
+    sine_like = (total > 0) & (width_bins <= 2.0 * enbw_bins)
+    safe_total = np.where(sine_like, total, 1.0)
+    centroid = (power * frequency_hz[window]).sum(axis=1) / safe_total
+    lower = frequency_hz[np.maximum(index - 1, 0)]
+    upper = frequency_hz[np.minimum(index + 1, n - 1)]
+    refined_frequency = np.where(sine_like, np.clip(centroid, lower, upper), frequency_hz[index])
+    refined_level = np.where(sine_like, 10.0 * np.log10(safe_total / enbw_bins), level[index])
+    return refined_frequency, refined_level
+
+
+# Sidelobes of a strong sine may stand this much above the window's leakage
+# envelope (noise adding in phase) and still count as leakage.
+_LEAKAGE_MARGIN_DB = 3.0
+# Only the strongest peaks are checked as sources of leakage.
+_MAX_LEAKERS = 64
+
+
+def _leaked(
+    bin_frequency_hz: np.ndarray,
+    peak_frequency_hz: np.ndarray,
+    peak_level: np.ndarray,
+    bin_hz: float,
+    enbw_bins: float,
+) -> np.ndarray:
+    """Which FFT peaks are sidelobes of a stronger one.
+
+    A peak is leakage when some stronger peak's window response at that
+    distance (the envelope, taken half a bin nearer to cover where between
+    bins the sidelobe's maximum fell) reaches within 3 dB of it.
+    """
+    leaked = np.zeros(peak_level.size, dtype=bool)
+    strongest = np.argsort(-peak_level, kind="stable")[:_MAX_LEAKERS]
+    offset_bins = np.abs(bin_frequency_hz[:, None] - peak_frequency_hz[None, strongest]) / bin_hz
+    envelope = leakage_envelope_db(enbw_bins, np.maximum(offset_bins - 0.5, 0.0))
+    if envelope is None:
+        return leaked
+    stronger = peak_level[None, strongest] > peak_level[:, None]
+    reach = peak_level[None, strongest] + envelope + _LEAKAGE_MARGIN_DB
+    return (stronger & (peak_level[:, None] <= reach)).any(axis=1)
+
+
+def _merge_close(
+    frequency_hz: np.ndarray, level: np.ndarray, resolution_hz: np.ndarray
+) -> np.ndarray:
+    """Indices (into the frequency-sorted peaks) that survive merging: peaks
+    chained by gaps up to the resolution form one group, whose highest peak
+    is kept. (Up to, not below: two maxima two steps apart on a uniform grid
+    are exactly two steps apart.)"""
+    if frequency_hz.size < 2:
+        return np.arange(frequency_hz.size)
+    limit = np.maximum(resolution_hz[:-1], resolution_hz[1:]) * (1 + 1e-9)
+    group = np.concatenate(([0], np.cumsum(np.diff(frequency_hz) > limit)))
+    order = np.lexsort((-level, group))
+    first = np.concatenate(([True], group[order][1:] != group[order][:-1]))
+    return np.sort(order[first])
+
+
+def find_peaks(
+    spectrum: Spectrum,
+    *,
+    prominence_db: float = 6.0,
+    false_alarm: float = 1e-4,
+    resolution_hz: float | None = None,
+    max_peaks: int = 200,
+) -> tuple[Peak, ...]:
+    """The emissions in a spectrum, sorted by frequency.
+
+    A peak is a local maximum (never the first or last point)
+      * standing at least ``detection_threshold_db`` above the noise floor, so
+        that noise alone produces one with probability ``false_alarm`` over
+        the whole spectrum (Rayleigh statistics for FFT spectra, a robust
+        Gaussian spread for receiver traces), and
+      * whose prominence is at least ``prominence_db``: its height above the
+        higher of its two bases, a base being the lowest level between the
+        peak and the nearest higher point on that side, never taken below the
+        local floor. An isolated peak's prominence is its height above the
+        floor; a bump on the flank of a higher peak, or on a plateau, counts
+        only its own dip. On a noise-free floor this is exactly
+        ``scipy.signal.find_peaks(level, prominence=prominence_db)``.
+    Peaks within a resolution of each other — ``resolution_hz``, else the
+    spectrum's ``rbw_hz``, else two local frequency steps — merge into the
+    highest.
+    If more than ``max_peaks`` remain, the most prominent are kept.
+
+    ``level`` of FFT peaks is refined between bins (see ``_refine``); a
+    receiver's peak is its highest point. ``width_hz`` is the width where the
+    level has fallen 6 dB below the peak's highest point, interpolated
+    between points: a sine gives about its RBW, a spread-spectrum plateau its
+    full spread. ``prominence_db`` is the prominence above.
+    """
+    frequency_hz, level = _check_spectrum(spectrum)
+    if not (math.isfinite(prominence_db) and prominence_db >= 0):
+        raise TraceError(f"prominence_db must be a non-negative number, not {prominence_db!r}")
+    _check_false_alarm(false_alarm)
+    if resolution_hz is not None and not (math.isfinite(resolution_hz) and resolution_hz > 0):
+        raise TraceError(f"resolution_hz must be a positive number of Hz, not {resolution_hz!r}")
+    if not (isinstance(max_peaks, int) and max_peaks >= 0):
+        raise TraceError(f"max_peaks must be a non-negative whole number, not {max_peaks!r}")
+    n = frequency_hz.size
+    if n < 3 or max_peaks == 0:
+        return ()
+
+    model = _floor_model(frequency_hz, level, spread=not spectrum.from_fft)
+    threshold_db = max(
+        prominence_db,
+        _statistical_threshold(spectrum.from_fft, n, false_alarm, model, frequency_hz, level),
+    )
+    candidates = _candidates(frequency_hz, level, model, threshold_db)
+    if candidates.size == 0:
+        return ()
+    index, prominence, floor = _topography(frequency_hz, level, model, candidates)
+    statistical_db = threshold_db if threshold_db > prominence_db else 0.0
+    # A bump joined to a higher peak above the detection threshold (its base
+    # stands that high) is part of one structure — a plateau, a lobe — and
+    # its own dip must be as significant as a detection, not just 6 dB:
+    # noise on a plateau makes 6 dB dips all the time.
+    joined = level[index] - prominence >= floor + threshold_db
+    required_db = np.where(joined, max(prominence_db, statistical_db), prominence_db)
+    keep = (prominence >= required_db) & (level[index] - floor > threshold_db)
+    keep &= (index > 0) & (index < n - 1)
+    index, prominence, floor = index[keep], prominence[keep], floor[keep]
+    if index.size == 0:
+        return ()
+
+    step_hz = frequency_hz[index + 1] - frequency_hz[index - 1]  # two local steps
+    if resolution_hz is not None:
+        resolution = np.full(index.size, float(resolution_hz))
+    elif spectrum.rbw_hz is not None:
+        resolution = np.full(index.size, float(spectrum.rbw_hz))
+    else:
+        resolution = step_hz
+    bridge_points = np.maximum(2, np.rint(2.0 * resolution / step_hz)).astype(np.intp)
+    left_position, right_position = _width_bounds(
+        level, index, level[index] - WIDTH_DROP_DB, bridge_points
+    )
+    width_hz = _fractional_frequency(frequency_hz, right_position) - _fractional_frequency(
+        frequency_hz, left_position
+    )
+
+    if spectrum.from_fft:
+        enbw_bins = None
+        if spectrum.rbw_hz is not None:
+            enbw_bins = spectrum.rbw_hz / (0.5 * float(np.median(step_hz)))
+        peak_frequency, peak_level = _refine(
+            frequency_hz, level, index, floor, right_position - left_position, enbw_bins
+        )
+        if enbw_bins is not None:
+            leaked = _leaked(
+                frequency_hz[index],
+                peak_frequency,
+                peak_level,
+                0.5 * float(np.median(step_hz)),
+                enbw_bins,
+            )
+            keep = ~leaked
+            index, prominence, peak_frequency, peak_level, width_hz, resolution = (
+                index[keep],
+                prominence[keep],
+                peak_frequency[keep],
+                peak_level[keep],
+                width_hz[keep],
+                resolution[keep],
+            )
+    else:
+        peak_frequency, peak_level = frequency_hz[index], level[index].copy()
+
+    survivors = _merge_close(peak_frequency, peak_level, resolution)
+    if survivors.size > max_peaks:
+        most_prominent = np.argsort(-prominence[survivors], kind="stable")[:max_peaks]
+        survivors = np.sort(survivors[most_prominent])
+
+    return tuple(
+        Peak(
+            frequency_hz=float(peak_frequency[i]),
+            level=float(peak_level[i]),
+            prominence_db=float(prominence[i]),
+            width_hz=float(width_hz[i]),
+        )
+        for i in survivors
+    )
+
+
+def readings_at(spectrum: Spectrum, frequency_hz: ArrayLike, tolerance_hz: ArrayLike) -> np.ndarray:
+    """The highest level within ±tolerance of each requested frequency.
+
+    For each f (broadcast with its tolerance t): the maximum of the levels at
+    points with f − t ≤ frequency ≤ f + t, NaN where no point lies within.
+    One pass over the spectrum (maxima of the stretches between all query
+    edges) plus a sparse table over those stretches answers every query.
+    """
+    spectrum_hz, level = _check_spectrum(spectrum)
+    try:
+        query_hz, tolerance = np.broadcast_arrays(
+            np.asarray(frequency_hz, dtype=np.float64), np.asarray(tolerance_hz, dtype=np.float64)
+        )
+    except ValueError:
+        raise TraceError("frequencies and tolerances must be numbers of matching shape") from None
+    if not (
+        np.isfinite(query_hz).all() and np.isfinite(tolerance).all() and (tolerance >= 0).all()
+    ):
+        raise TraceError("frequencies must be finite and tolerances finite and non-negative")
+    result = np.full(query_hz.shape, np.nan)
+    if spectrum_hz.size == 0 or query_hz.size == 0:
+        return result
+    _require_numbers(level)
+    lo = np.searchsorted(spectrum_hz, (query_hz - tolerance).ravel(), side="left")
+    hi = np.searchsorted(spectrum_hz, (query_hz + tolerance).ravel(), side="right")
+    hit = hi > lo
+    if not hit.any():
+        return result
+    lo, hi = lo[hit], hi[hit]
+
+    # Stretches between consecutive query edges; their maxima in one reduceat.
+    edges = np.unique(np.concatenate((lo, hi)))
+    n = spectrum_hz.size
+    if edges[-1] == n:
+        stretch_max = np.maximum.reduceat(level, edges[:-1])
+    else:
+        stretch_max = np.maximum.reduceat(level, edges)[:-1]
+    first = np.searchsorted(edges, lo)
+    last = np.searchsorted(edges, hi) - 1  # inclusive stretch index
+
+    # Sparse table: table[p][i] = max of stretches i … i + 2^p − 1.
+    table = [stretch_max]
+    while 2 ** len(table) <= stretch_max.size:
+        half = 2 ** (len(table) - 1)
+        previous = table[-1]
+        table.append(np.maximum(previous[:-half], previous[half:]))
+    count = last - first + 1
+    power = (np.frexp(count)[1] - 1).astype(np.intp)  # exact floor(log2(count))
+    span = 2**power
+    answer = np.empty(lo.size)
+    for p in np.unique(power):
+        rows = power == p
+        answer[rows] = np.maximum(table[p][first[rows]], table[p][last[rows] - span[rows] + 1])
+    flat = result.ravel()
+    flat[hit] = answer
+    return flat.reshape(query_hz.shape)
