@@ -28,19 +28,26 @@ from analysis.types import Peak, Spectrum
 
 # The floor is a median over buckets 0.02 decade wide (4.7 % in frequency,
 # wider than a ±0.5 % or 1 % spread-spectrum plateau, so the plateau does not
-# lift its own floor) holding at least 64 points (where bins are sparse in log
-# frequency, i.e. the low end of an FFT spectrum, a window's main lobe then
-# still covers a minority of the bucket).
+# lift its own floor) holding at least 64 points of a receiver trace, 512 bins
+# of an FFT spectrum. Where points are sparse in log frequency (the low end of
+# an FFT spectrum) buckets grow to that count: a window's main lobe then
+# covers a minority of the bucket, and the median of Rayleigh bins (which the
+# window correlates over ~ENBW bins) is good to about ±0.5 dB, not ±1.5 dB as
+# with 64 bins.
 _BUCKET_DECADES = 0.02
 _MIN_BUCKET_POINTS = 64
+_MIN_BUCKET_BINS = 512
 # A bucket's median is estimated from at most this many of its points (a
 # 1024-sample median of Rayleigh noise is good to ±0.2 dB).
 _MAX_MEDIAN_SAMPLES = 1024
 # Quasi-random sample positions (golden-ratio sequence): unlike a fixed
 # stride they cannot lock onto a harmonic comb and sample only its lines.
-_SAMPLE_FRACTIONS = np.modf(np.arange(1, _MAX_MEDIAN_SAMPLES + 1) * ((math.sqrt(5.0) - 1.0) / 2.0))[
-    0
-]
+_GOLDEN_RATIO_FRACTION = (math.sqrt(5.0) - 1.0) / 2.0
+_SAMPLE_FRACTIONS = np.modf(np.arange(1, _MAX_MEDIAN_SAMPLES + 1) * _GOLDEN_RATIO_FRACTION)[0]
+# The Rayleigh threshold assumes the median floor is known; the estimate
+# scatters by 0.2–0.5 dB (see above), and a floor 0.3 dB low multiplies the
+# false-alarm rate several times over, so FFT thresholds carry this margin.
+_FLOOR_SCATTER_MARGIN_DB = 1.0
 # 1.4826·MAD estimates σ of Gaussian data.
 _MAD_TO_SIGMA = 1.482602218505602
 # Width is measured where the level has fallen this far below the peak (the
@@ -77,23 +84,21 @@ def _require_numbers(level: np.ndarray) -> None:
         raise TraceError("the spectrum has levels that are not numbers (NaN)")
 
 
-def _bucket_bounds(frequency_hz: np.ndarray) -> np.ndarray:
+def _bucket_bounds(frequency_hz: np.ndarray, min_points: int) -> np.ndarray:
     """Bucket edges (indices, 0 … n): 0.02-decade buckets merged until each
-    holds at least 64 points.
+    holds at least ``min_points`` points.
 
     Works on edges only (O(buckets)): a coordinate that advances by
-    min(1, points/64) per log bucket is cut at integer steps, so where log
-    buckets are crowded they stay as they are and where they are sparse
-    several merge into one of about 64 points.
+    min(1, points/min_points) per log bucket is cut at integer steps, so where
+    log buckets are crowded they stay as they are and where they are sparse
+    several merge into one of about min_points points.
     """
     n = frequency_hz.size
     lo, hi = math.log10(frequency_hz[0]), math.log10(frequency_hz[-1])
     k = max(1, math.ceil((hi - lo) / _BUCKET_DECADES))
     inner = np.searchsorted(frequency_hz, 10.0 ** (lo + _BUCKET_DECADES * np.arange(1, k)))
     edges = np.unique(np.concatenate(([0], inner, [n])))
-    coordinate = np.concatenate(
-        ([0.0], np.cumsum(np.minimum(1.0, np.diff(edges) / _MIN_BUCKET_POINTS)))
-    )
+    coordinate = np.concatenate(([0.0], np.cumsum(np.minimum(1.0, np.diff(edges) / min_points))))
     buckets = max(1, int(coordinate[-1] + 1e-9))
     cuts = np.interp(np.linspace(0.0, coordinate[-1], buckets + 1), coordinate, edges)
     return np.unique(np.rint(cuts).astype(np.intp))
@@ -131,11 +136,11 @@ def _bucket_medians(
 
 
 def _floor_model(
-    frequency_hz: np.ndarray, level: np.ndarray, *, spread: bool = False
+    frequency_hz: np.ndarray, level: np.ndarray, *, from_fft: bool, spread: bool = False
 ) -> _FloorModel:
     """Bucket medians of the level; with ``spread``, also the robust σ of the
     level about them (only receiver traces need it)."""
-    bounds = _bucket_bounds(frequency_hz)
+    bounds = _bucket_bounds(frequency_hz, _MIN_BUCKET_BINS if from_fft else _MIN_BUCKET_POINTS)
     starts, stops = bounds[:-1], bounds[1:]
     lengths = stops - starts
     median, samples = _bucket_medians(level, starts, lengths)
@@ -161,7 +166,8 @@ def noise_floor(spectrum: Spectrum) -> np.ndarray:
     """A robust local noise floor, one value per point, in the spectrum's unit.
 
     Running median in log frequency: medians over buckets 0.02 decade wide
-    (merged to at least 64 points where points are sparse), interpolated
+    (merged to at least 64 points of a receiver trace, 512 bins of an FFT
+    spectrum, where points are sparse), interpolated
     linearly in log f between bucket centres and held flat beyond the first
     and last. Narrow emissions, harmonic combs and spread-spectrum plateaus
     up to a few percent wide do not lift it.
@@ -170,7 +176,7 @@ def noise_floor(spectrum: Spectrum) -> np.ndarray:
     if frequency_hz.size == 0:
         return np.empty(0)
     _require_numbers(level)
-    model = _floor_model(frequency_hz, level)
+    model = _floor_model(frequency_hz, level, from_fft=spectrum.from_fft)
     return _floor_at(model, frequency_hz, np.arange(frequency_hz.size))
 
 
@@ -185,7 +191,8 @@ def detection_threshold_db(spectrum: Spectrum, *, false_alarm: float = 1e-4) -> 
     ``false_alarm`` (union bound; neighbouring bins are correlated by the
     window, which only makes the bound safer) gives n·2^(−k²) = false_alarm,
     k² = log2(n/false_alarm), i.e. 10·log10(log2(n/false_alarm)) dB: 15.5 dB
-    for 5 million bins at 1e-4, 14.4 dB for 10,000.
+    for 5 million bins at 1e-4, 14.4 dB for 10,000 — plus 1 dB because the
+    median floor is itself an estimate (it scatters by 0.2–0.5 dB).
 
     Receiver traces: the detector has averaged the noise, whose spread in dB
     is treated as Gaussian with σ estimated robustly (1.4826·MAD about the
@@ -216,9 +223,10 @@ def _statistical_threshold(
 ) -> float:
     per_point = false_alarm / n
     if from_fft:
-        return 10.0 * math.log10(max(1.0, math.log2(1.0 / per_point)))
+        rayleigh_db = 10.0 * math.log10(max(1.0, math.log2(1.0 / per_point)))
+        return rayleigh_db + _FLOOR_SCATTER_MARGIN_DB
     if model is None or math.isnan(model.spread_db):
-        model = _floor_model(frequency_hz, level, spread=True)
+        model = _floor_model(frequency_hz, level, from_fft=False, spread=True)
     z = float(-scipy.special.ndtri(per_point))
     return max(0.0, z) * model.spread_db
 
@@ -301,6 +309,13 @@ def _topography(
     return index, prominence, peak_floor
 
 
+# Widths are searched within ±64 points, then ±512, ±4096, ±32,768 and
+# ±65,536 for the peaks whose −6 dB run reaches the window's edge; each round
+# works on at most this many window cells at once.
+_WIDTH_WINDOWS = (64, 512, 4096, 32_768, 65_536)
+_WIDTH_CELLS = 4_000_000
+
+
 def _width_bounds(
     level: np.ndarray, index: np.ndarray, reference: np.ndarray, bridge_points: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray]:
@@ -309,66 +324,78 @@ def _width_bounds(
     the peak, with dips of at most ``bridge_points`` points bridged (noise on
     a plateau dips 6 dB below its highest point every few points; a genuine
     edge stays down), each end interpolated linearly between the last point
-    above and the first below.
-
-    Each peak is examined in a window of ±64 points, widened eightfold for
-    the peaks whose run reaches the window's edge, up to ±65,536 points
-    (beyond that the width is cut there).
+    above and the first below. Runs longer than ±65,536 points are cut there.
     """
-    n = level.size
     left = np.empty(index.size)
     right = np.empty(index.size)
     todo = np.arange(index.size)
-    half = 64
-    while todo.size:
-        offsets = np.arange(-half, half + 1)
-        position = index[todo, None] + offsets[None, :]
-        inside = (position >= 0) & (position < n)
-        values = level[np.clip(position, 0, n - 1)]
-        ref = reference[todo, None]
-        above = inside & (values > ref)
-        columns = np.arange(offsets.size)
-        previous_above = np.maximum.accumulate(np.where(above, columns, -1), axis=1)
-        next_above = np.minimum.accumulate(np.where(above, columns, offsets.size)[:, ::-1], axis=1)[
-            :, ::-1
-        ]
-        gap = next_above - previous_above - 1
-        bridged = (previous_above >= 0) & (next_above < offsets.size)
-        bridged &= gap <= bridge_points[todo, None]
-        broken = ~(above | (inside & bridged))
-        centre = half
-        left_break = np.max(np.where(broken[:, :centre], columns[:centre], -1), axis=1)
-        right_break = np.min(
-            np.where(broken[:, centre + 1 :], columns[centre + 1 :], offsets.size), axis=1
-        )
-        rows = np.arange(todo.size)
-        # A break found, or the window already spans the spectrum's end.
-        left_done = (left_break >= 0) | (index[todo] - half <= 0)
-        right_done = (right_break < offsets.size) | (index[todo] + half >= n - 1)
-        done = (left_done & right_done) | (half >= 65_536)
-
-        lb = np.maximum(left_break, 0)
-        rb = np.minimum(right_break, offsets.size - 1)
-        lb_value, lb_next = values[rows, lb], values[rows, np.minimum(lb + 1, offsets.size - 1)]
-        rb_value, rb_prev = values[rows, rb], values[rows, np.maximum(rb - 1, 0)]
-        with np.errstate(divide="ignore", invalid="ignore"):
-            left_fraction = np.clip((ref[:, 0] - lb_value) / (lb_next - lb_value), 0.0, 1.0)
-            right_fraction = np.clip((ref[:, 0] - rb_value) / (rb_prev - rb_value), 0.0, 1.0)
-        left_position = np.where(
-            (left_break >= 0) & inside[rows, lb],
-            position[rows, lb] + left_fraction,
-            np.maximum(position[:, 0], 0),
-        )
-        right_position = np.where(
-            (right_break < offsets.size) & inside[rows, rb],
-            position[rows, rb] - right_fraction,
-            np.minimum(position[:, -1], n - 1),
-        )
-        left[todo[done]] = left_position[done]
-        right[todo[done]] = right_position[done]
-        todo = todo[~done]
-        half *= 8
+    for half in _WIDTH_WINDOWS:
+        final = half == _WIDTH_WINDOWS[-1]
+        rows_per_chunk = max(1, _WIDTH_CELLS // (2 * half + 1))
+        unfinished = []
+        for chunk in range(0, todo.size, rows_per_chunk):
+            rows = todo[chunk : chunk + rows_per_chunk]
+            done, left_position, right_position = _width_round(
+                level, index[rows], reference[rows], bridge_points[rows], half
+            )
+            done |= final
+            left[rows[done]] = left_position[done]
+            right[rows[done]] = right_position[done]
+            unfinished.append(rows[~done])
+        todo = np.concatenate(unfinished)
+        if todo.size == 0:
+            break
     return left, right
+
+
+def _width_round(
+    level: np.ndarray,
+    index: np.ndarray,
+    reference: np.ndarray,
+    bridge_points: np.ndarray,
+    half: int,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """One window size of _width_bounds: (found both ends, left, right)."""
+    n = level.size
+    offsets = np.arange(-half, half + 1)
+    columns = np.arange(offsets.size)
+    position = index[:, None] + offsets[None, :]
+    inside = (position >= 0) & (position < n)
+    values = level[np.clip(position, 0, n - 1)]
+    ref = reference[:, None]
+    above = inside & (values > ref)
+    previous_above = np.maximum.accumulate(np.where(above, columns, -1), axis=1)
+    reversed_next = np.where(above, columns, offsets.size)[:, ::-1]
+    next_above = np.minimum.accumulate(reversed_next, axis=1)[:, ::-1]
+    bridged = (previous_above >= 0) & (next_above < offsets.size)
+    bridged &= next_above - previous_above - 1 <= bridge_points[:, None]
+    broken = ~(above | (inside & bridged))
+    left_break = np.max(np.where(broken[:, :half], columns[:half], -1), axis=1)
+    right_break = np.min(np.where(broken[:, half + 1 :], columns[half + 1 :], offsets.size), axis=1)
+    # Done when a break is found on each side, or the window reaches the end.
+    done = ((left_break >= 0) | (index - half <= 0)) & (
+        (right_break < offsets.size) | (index + half >= n - 1)
+    )
+
+    rows = np.arange(index.size)
+    lb = np.maximum(left_break, 0)
+    rb = np.minimum(right_break, offsets.size - 1)
+    lb_value, lb_next = values[rows, lb], values[rows, np.minimum(lb + 1, offsets.size - 1)]
+    rb_value, rb_prev = values[rows, rb], values[rows, np.maximum(rb - 1, 0)]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        left_fraction = np.clip((reference - lb_value) / (lb_next - lb_value), 0.0, 1.0)
+        right_fraction = np.clip((reference - rb_value) / (rb_prev - rb_value), 0.0, 1.0)
+    left_position = np.where(
+        (left_break >= 0) & inside[rows, lb],
+        position[rows, lb] + left_fraction,
+        np.maximum(position[:, 0], 0),
+    )
+    right_position = np.where(
+        (right_break < offsets.size) & inside[rows, rb],
+        position[rows, rb] - right_fraction,
+        np.minimum(position[:, -1], n - 1),
+    )
+    return done, left_position, right_position
 
 
 def _refine(
@@ -497,16 +524,23 @@ def find_peaks(
         floor; a bump on the flank of a higher peak, or on a plateau, counts
         only its own dip. On a noise-free floor this is exactly
         ``scipy.signal.find_peaks(level, prominence=prominence_db)``.
+    A bump whose base stands above the detection threshold (a bump on a
+    plateau or on another emission's flank) needs a dip as deep as the
+    detection threshold, not just ``prominence_db``: noise on a plateau dips
+    6 dB every few points. On FFT spectra whose window is known (rbw_hz /
+    bin width is one of fft.WINDOWS' ENBWs), peaks within a stronger peak's
+    leakage envelope (+3 dB) are its sidelobes and are dropped.
     Peaks within a resolution of each other — ``resolution_hz``, else the
     spectrum's ``rbw_hz``, else two local frequency steps — merge into the
-    highest.
-    If more than ``max_peaks`` remain, the most prominent are kept.
+    highest. If more than ``max_peaks`` remain, the most prominent are kept.
 
     ``level`` of FFT peaks is refined between bins (see ``_refine``); a
     receiver's peak is its highest point. ``width_hz`` is the width where the
-    level has fallen 6 dB below the peak's highest point, interpolated
-    between points: a sine gives about its RBW, a spread-spectrum plateau its
-    full spread. ``prominence_db`` is the prominence above.
+    level has fallen 6 dB below the peak's highest point and stays there
+    (dips no longer than the resolution are bridged), interpolated between
+    points: a sine gives about its RBW (flat-top FFT: 4.4 bins), a
+    spread-spectrum plateau its full spread. ``prominence_db`` is the
+    prominence above.
     """
     frequency_hz, level = _check_spectrum(spectrum)
     if not (math.isfinite(prominence_db) and prominence_db >= 0):
@@ -520,7 +554,9 @@ def find_peaks(
     if n < 3 or max_peaks == 0:
         return ()
 
-    model = _floor_model(frequency_hz, level, spread=not spectrum.from_fft)
+    model = _floor_model(
+        frequency_hz, level, from_fft=spectrum.from_fft, spread=not spectrum.from_fft
+    )
     threshold_db = max(
         prominence_db,
         _statistical_threshold(spectrum.from_fft, n, false_alarm, model, frequency_hz, level),
@@ -529,13 +565,12 @@ def find_peaks(
     if candidates.size == 0:
         return ()
     index, prominence, floor = _topography(frequency_hz, level, model, candidates)
-    statistical_db = threshold_db if threshold_db > prominence_db else 0.0
     # A bump joined to a higher peak above the detection threshold (its base
     # stands that high) is part of one structure — a plateau, a lobe — and
     # its own dip must be as significant as a detection, not just 6 dB:
     # noise on a plateau makes 6 dB dips all the time.
     joined = level[index] - prominence >= floor + threshold_db
-    required_db = np.where(joined, max(prominence_db, statistical_db), prominence_db)
+    required_db = np.where(joined, threshold_db, prominence_db)
     keep = (prominence >= required_db) & (level[index] - floor > threshold_db)
     keep &= (index > 0) & (index < n - 1)
     index, prominence, floor = index[keep], prominence[keep], floor[keep]

@@ -10,7 +10,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from analysis.errors import TraceError
-from analysis.fft import amplitude_spectrum
+from analysis.fft import aggregate_rbw, amplitude_spectrum
 from analysis.peaks import detection_threshold_db, find_peaks, noise_floor, readings_at
 from analysis.types import Spectrum, TimeRecord
 
@@ -166,6 +166,32 @@ def test_the_first_and_last_points_are_never_peaks():
     assert find_peaks(Spectrum(np.linspace(1e6, 2e6, 1001), level, "dBuV")) == ()
 
 
+def test_widths_of_clean_peaks_match_scipy_peak_widths():
+    # reference: scipy.signal.peak_widths at 6 dB below each peak (rel_height=1
+    # with a prominence of 6), converted to Hz on the 1 kHz grid
+    k = np.arange(20_001)
+    f = 1e6 + 1e3 * k
+    level = np.full(k.size, 10.0)
+    shapes = [(2_000, 30.0, 1.0), (6_000, 40.0, 3.5), (10_000, 25.0, 12.0)]
+    for centre, height, width in shapes:
+        level = np.maximum(level, height - ((k - centre) / width) ** 2)
+    # a 1 % plateau (160 points at 16 MHz), wider than the first ±64-point search
+    level[15_000:15_160] = 40.0
+    peaks = find_peaks(Spectrum(f, level, "dBuV"))
+    index = np.searchsorted(f, [p.frequency_hz for p in peaks])
+    assert index.tolist() == [2_000, 6_000, 10_000, 15_079]  # scipy: a plateau's middle
+    widths, _, _, _ = scipy.signal.peak_widths(
+        level,
+        index,
+        rel_height=1.0,
+        prominence_data=(np.full(4, 6.0), np.zeros(4, int), np.full(4, k.size - 1)),
+    )
+    np.testing.assert_allclose([p.width_hz for p in peaks], widths * 1e3, rtol=1e-9)
+    # worked example: the plateau's edges fall 40 → 10 dB in one step, so the
+    # 34 dB crossings lie 0.2 step outside its 160 points: 159.4 steps
+    assert peaks[-1].width_hz == pytest.approx(159.4e3)
+
+
 # --- merging and capping ---------------------------------------------------------------
 
 
@@ -248,11 +274,43 @@ def test_rayleigh_noise_exceeds_the_floor_as_often_as_the_distribution_says():
     assert np.mean(excess > 0.0) == pytest.approx(0.5, abs=0.01)
 
 
+def test_the_floor_of_an_fft_spectrum_is_the_rayleigh_median():
+    # worked example: a bin's noise power is exponential with mean 2σ²·ENBW/fs
+    # (Parseval); its median is ln 2 times the mean (Rayleigh magnitude, DOMAIN.md)
+    fs, n, sigma = 1e9, 1_000_000, 1e-3
+    spectrum = amplitude_spectrum(sine_record(n, fs, SINES, sigma, 5))
+    expected_db = 10 * math.log10(2 * sigma**2 * spectrum.rbw_hz / fs * math.log(2)) + 120
+    error_db = noise_floor(spectrum)[spectrum.frequency_hz > 1e6] - expected_db
+    # unbiased; a bucket's median of 512 window-correlated bins scatters by
+    # about 0.5 dB, of 1024 sampled bins by 0.2 dB
+    assert abs(error_db.mean()) < 0.1
+    assert np.sqrt(np.mean(error_db**2)) < 0.3
+    assert np.abs(error_db).max() < 2.0
+
+
+def test_a_scope_capture_aggregated_to_a_receiver_rbw_shows_its_sines():
+    # the scope-to-receiver path: FFT, 120 kHz RBW (CISPR 16-1-1 bands C/D via
+    # DOMAIN.md), then the receiver-trace branch of the peak finder
+    fs, n = 1e9, 1_000_000
+    spectrum = aggregate_rbw(amplitude_spectrum(sine_record(n, fs, SINES, 1e-3, 6)), 120e3)
+    peaks = find_peaks(spectrum)
+    assert len(peaks) == len(SINES)
+    for peak, (frequency_hz, amplitude_v) in zip(peaks, SINES, strict=True):
+        assert abs(peak.frequency_hz - frequency_hz) <= 60e3  # half the RBW
+        assert peak.level == pytest.approx(dbuv_rms(amplitude_v), abs=0.5)
+
+
 def test_the_fft_threshold_holds_the_false_alarm_rate():
-    # Rayleigh (DOMAIN.md): n·2^(−k²) = false_alarm → 10·log10(log2(n/p)) dB
+    # Rayleigh (DOMAIN.md): n·2^(−k²) = false_alarm → 10·log10(log2(n/p)) dB,
+    # plus the 1 dB the module adds for the floor estimate's scatter
     spectrum = amplitude_spectrum(sine_record(100_000, 1e8, [], 1e-3, 0))
     n = len(spectrum)
-    assert detection_threshold_db(spectrum) == pytest.approx(10 * math.log10(math.log2(n / 1e-4)))
+    rayleigh_db = 10 * math.log10(math.log2(n / 1e-4))
+    assert detection_threshold_db(spectrum) == pytest.approx(rayleigh_db + 1.0)
+    # empirically, the bins of noise stay below it (the largest of 50,000
+    # Rayleigh bins stands about 12 dB above the median: 2^(−k²)·n ≈ 1)
+    excess = spectrum.level - noise_floor(spectrum)
+    assert excess.max() < detection_threshold_db(spectrum)
 
 
 @pytest.mark.parametrize("window", ["flattop", "hann", "blackmanharris", "hamming"])
