@@ -241,7 +241,7 @@ def _fractional_frequency(frequency_hz: np.ndarray, position: np.ndarray) -> np.
 def _candidates(
     frequency_hz: np.ndarray, level: np.ndarray, model: _FloorModel, threshold_db: float
 ) -> np.ndarray:
-    """Indices whose level exceeds the floor by more than threshold_db.
+    """Indices whose level stands at least threshold_db above the floor.
 
     One pass over every point (a per-bucket maximum) finds the buckets that
     can hold such a point: the interpolated floor over a bucket never drops
@@ -254,18 +254,32 @@ def _candidates(
     padded = np.concatenate((model.median[:1], model.median, model.median[-1:]))
     lowest_floor = np.minimum(np.minimum(padded[:-2], padded[1:-1]), padded[2:])
     bound = lowest_floor + threshold_db
-    hot = np.flatnonzero(bucket_max > bound)
+    hot = np.flatnonzero(bucket_max >= bound)
     if hot.size == 0:
         return np.empty(0, dtype=np.intp)
     # Per hot bucket (a loop over buckets, not points): the points above the
     # bucket's bound, then the exact floor at those few.
     pieces = [
-        model.starts[b] + np.flatnonzero(level[model.starts[b] : model.stops[b]] > bound[b])
+        model.starts[b] + np.flatnonzero(level[model.starts[b] : model.stops[b]] >= bound[b])
         for b in hot
     ]
     index = np.concatenate(pieces)
-    above = level[index] > _floor_at(model, frequency_hz, index) + threshold_db
+    above = level[index] >= _floor_at(model, frequency_hz, index) + threshold_db
     return index[above]
+
+
+def _stretch_minima(level: np.ndarray, starts: np.ndarray, stops: np.ndarray) -> np.ndarray:
+    """Minimum level over each [start, stop) of disjoint, ordered, non-empty
+    stretches, in one reduceat: interleaved (start, stop) pairs reduce each
+    stretch, and the odd entries (stop → next start) are discarded."""
+    if starts.size == 0:
+        return np.empty(0)
+    bounds = np.empty(2 * starts.size, dtype=np.intp)
+    bounds[0::2] = starts
+    bounds[1::2] = stops
+    if bounds[-1] == level.size:
+        bounds = bounds[:-1]  # the last stretch runs to the end
+    return np.minimum.reduceat(level, bounds)[0::2]
 
 
 def _topography(
@@ -274,9 +288,9 @@ def _topography(
     """Local maxima among the candidates, their prominence and the floor there.
 
     Works on a compressed copy: the candidates and their immediate neighbours,
-    levels clipped from below at the floor, and one point at floor level
-    standing for each stretch left out (everything left out is below the
-    threshold, and noise in it reaches down to the floor). On it
+    levels clipped from below at the floor, and one point standing for each
+    stretch left out, at its lowest level (a base can only be a stretch's
+    minimum). On it
     ``scipy.signal.find_peaks`` finds the local maxima (plateaus give their
     middle point, as scipy does) and ``scipy.signal.peak_prominences`` the
     prominences — the same as on the full spectrum clipped at its floor, at
@@ -288,17 +302,26 @@ def _topography(
     floor = _floor_at(model, frequency_hz, neighbourhood)
     clipped = np.maximum(level[neighbourhood], floor)
 
+    # The stretches left out: between neighbourhoods, and before the first
+    # and after the last. Each becomes one point: its lowest level, clipped
+    # at the lower floor of its two ends.
     gap_after = np.flatnonzero(np.diff(neighbourhood) > 1)
-    insert_at = [gap_after + 1]
-    insert_value = [np.minimum(floor[gap_after], floor[gap_after + 1])]
+    gap_start = neighbourhood[gap_after] + 1
+    gap_stop = neighbourhood[gap_after + 1]
+    gap_floor = np.minimum(floor[gap_after], floor[gap_after + 1])
+    positions = gap_after + 1
     if neighbourhood[0] > 0:
-        insert_at.insert(0, np.array([0]))
-        insert_value.insert(0, floor[:1])
+        gap_start = np.concatenate(([0], gap_start))
+        gap_stop = np.concatenate(([neighbourhood[0]], gap_stop))
+        gap_floor = np.concatenate((floor[:1], gap_floor))
+        positions = np.concatenate(([0], positions))
     if neighbourhood[-1] < n - 1:
-        insert_at.append(np.array([neighbourhood.size]))
-        insert_value.append(floor[-1:])
-    positions = np.concatenate(insert_at)
-    compressed = np.insert(clipped, positions, np.concatenate(insert_value))
+        gap_start = np.append(gap_start, neighbourhood[-1] + 1)
+        gap_stop = np.append(gap_stop, n)
+        gap_floor = np.append(gap_floor, floor[-1])
+        positions = np.append(positions, neighbourhood.size)
+    gap_value = np.maximum(_stretch_minima(level, gap_start, gap_stop), gap_floor)
+    compressed = np.insert(clipped, positions, gap_value)
     origin = np.insert(neighbourhood, positions, -1)
 
     maxima, _ = scipy.signal.find_peaks(compressed)
@@ -571,7 +594,7 @@ def find_peaks(
     # noise on a plateau makes 6 dB dips all the time.
     joined = level[index] - prominence >= floor + threshold_db
     required_db = np.where(joined, threshold_db, prominence_db)
-    keep = (prominence >= required_db) & (level[index] - floor > threshold_db)
+    keep = (prominence >= required_db) & (level[index] >= floor + threshold_db)
     keep &= (index > 0) & (index < n - 1)
     index, prominence, floor = index[keep], prominence[keep], floor[keep]
     if index.size == 0:
