@@ -2,7 +2,8 @@
 
 A scope capture becomes a single-sided spectrum in dBµV where a sinusoid reads
 its rms value whatever its frequency relative to the bins (with the default
-flat-top window), so a probe's time record can be set beside a receiver scan.
+flat-top window), so a probe's time record can be set beside a receiver scan;
+``aggregate_rbw`` then sums it into a receiver's resolution bandwidth.
 
 Windows are scipy's periodic (``fftbins=True``) cosine-sum windows, evaluated
 here without calling ``scipy.signal.get_window`` on the hot path: for ten
@@ -332,8 +333,10 @@ def aggregate_rbw(spectrum: Spectrum, rbw_hz: float | str) -> Spectrum:
     window lobe carries ENBW × its peak-bin power) and noise reads its power
     in G·Δf. Groups overlap: one starts every min(G/2, G − L + 1) bins, where
     L = 2·⌈ENBW⌉+1 bins holds a sine's main lobe, so every sine falls wholly
-    inside some group; sines keep their level within 0.1 dB when G ≥ L (9 bins
-    for flat-top). Each output point sits at its group's centre.
+    inside some group; sines keep their level within 0.01 dB when G ≥ L (9
+    bins for flat-top) with the cosine windows. The rectangular window's sinc
+    tails spill further (0.2 dB lost at 9 bins, 0.08 dB at 30). Each output
+    point sits at its group's centre.
 
     ``rbw_hz`` is a number, or "cispr16" for each CISPR 16-1-1 band's RBW over
     that band (groups never straddle a band edge; bins outside 9 kHz–18 GHz

@@ -16,6 +16,7 @@ from analysis.fft import (
     aggregate_rbw,
     amplitude_spectrum,
     figures_of_samples,
+    leakage_envelope_db,
     periodic_window,
     window_figures,
 )
@@ -82,6 +83,28 @@ def test_enbw_reproduces_mathworks_reference_vectors():
     assert figures_of_samples(flattop).enbw_bins * 44.1e3 / 10000 == pytest.approx(
         16.6285, abs=5e-5
     )
+
+
+@pytest.mark.parametrize(
+    ("window", "main_lobe_bins", "sidelobe_db"),
+    [
+        ("rectangular", 1, -13.0),
+        ("hann", 2, -32.0),
+        ("hamming", 2, -43.0),
+        ("blackmanharris", 4, -92.0),
+    ],
+)
+def test_the_leakage_envelope_beyond_the_main_lobe_is_the_highest_sidelobe(
+    window, main_lobe_bins, sidelobe_db
+):
+    # Harris 1978 Table I, highest side-lobe level (from memory; DOMAIN.md
+    # quotes only that table's gain, ENBW and scalloping columns)
+    enbw_bins = window_figures(window, 4096).enbw_bins
+    envelope = leakage_envelope_db(enbw_bins, np.array([0.0, main_lobe_bins, 4000.0]))
+    assert envelope[0] == pytest.approx(0.0)
+    assert envelope[1] == pytest.approx(sidelobe_db, abs=0.7)
+    assert envelope[2] < envelope[1]
+    assert leakage_envelope_db(2.5, np.array([3.0])) is None  # no window has that ENBW
 
 
 def test_it_rejects_an_unknown_window():
@@ -233,17 +256,19 @@ def fft_of(x, fs, window="flattop"):
     return amplitude_spectrum(record(x, fs), window=window)
 
 
+@pytest.mark.parametrize("rbw_hz", [9e3, 120e3])
 @pytest.mark.parametrize("offset_bins", [0.0, 0.37, 0.5])
 @pytest.mark.parametrize("bin_index", [50_000, 50_030, 50_059, 50_061])
-def test_aggregation_keeps_a_sines_level(offset_bins, bin_index):
+def test_aggregation_keeps_a_sines_level(rbw_hz, offset_bins, bin_index):
     # worked example: 0.1 V reads 77.0 dBµV in any bandwidth that holds it
     # (Parseval: its lobe's power / ENBW is its power); bin positions cover
-    # group starts, middles and ends of 120-bin groups every 60 bins
+    # group starts, middles and ends of 120-bin groups every 60 bins, and
+    # 9-bin groups (the flat-top's whole lobe) every bin
     fs, n = 200e6, 200_000  # 1 kHz bins, 3.77 kHz ENBW
     x = sine(n, fs, (bin_index + offset_bins) * fs / n, 0.1)
-    wide = aggregate_rbw(fft_of(x, fs), 120e3)
+    wide = aggregate_rbw(fft_of(x, fs), rbw_hz)
     assert wide.level.max() == pytest.approx(dbuv_rms(0.1), abs=0.1)
-    assert wide.rbw_hz == pytest.approx(120e3)
+    assert wide.rbw_hz == pytest.approx(rbw_hz)
     assert wide.from_fft is False
     assert (np.diff(wide.frequency_hz) > 0).all()
 
