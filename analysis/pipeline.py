@@ -125,6 +125,14 @@ def resolve_limit(limit: str | LimitLine | None, distance_m: float | None) -> tu
     return line, warnings
 
 
+def peak_resolution_hz(spectrum: Spectrum, peaks: Sequence[Peak]) -> np.ndarray:
+    """How precisely each peak's frequency is known: the trace's point spacing there."""
+    if not peaks:
+        return np.zeros(0)
+    steps = np.diff(spectrum.frequency_hz)
+    return np.interp([p.frequency_hz for p in peaks], spectrum.frequency_hz[1:], steps)
+
+
 def analyse_file(
     source: str | os.PathLike | bytes | BinaryIO,
     *,
@@ -177,12 +185,9 @@ def analyse_trace(
     report(0.6)
     peaks = find_peaks(spectrum, prominence_db=prominence_db)
     report(0.8)
-    steps = np.diff(spectrum.frequency_hz)
-    resolution = np.interp(
-        [p.frequency_hz for p in peaks], spectrum.frequency_hz[1:], steps
-    ) if peaks else np.zeros(0)
+    resolution = peak_resolution_hz(spectrum, peaks)
     families = find_families(peaks, resolution_hz=resolution)
-    attributions = attribute(peaks, sources) if sources else ()
+    attributions = attribute(peaks, sources, resolution_hz=resolution) if sources else ()
     found = exceedances(peaks, spectrum.unit, line, guard_db=guard_db) if line is not None else None
     env = decimate(spectrum.frequency_hz, spectrum.level, max_points=envelope_points)
     report(1.0)
