@@ -194,6 +194,12 @@ CELERY_TASK_ACKS_LATE = True
 CELERY_TASK_REJECT_ON_WORKER_LOST = True
 CELERY_WORKER_PREFETCH_MULTIPLIER = 1
 CELERY_TASK_DEFAULT_QUEUE = "default"
+# Analyses get their own queue so a burst of uploads never delays the small tasks.
+CELERY_TASK_ROUTES = {
+    "emicase.analyse_scan": {"queue": "analysis"},
+    "emicase.analyse_capture": {"queue": "analysis"},
+    "emicase.reread_case": {"queue": "analysis"},
+}
 CELERY_TASK_SOFT_TIME_LIMIT = envint("EMICASE_TASK_SOFT_TIME_LIMIT", 15 * 60)
 CELERY_TASK_TIME_LIMIT = envint("EMICASE_TASK_TIME_LIMIT", 20 * 60)
 CELERY_BROKER_CONNECTION_RETRY_ON_STARTUP = True

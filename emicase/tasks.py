@@ -16,7 +16,6 @@ log = logging.getLogger("emicase.tasks")
 
 ANALYSIS_OPTIONS = dict(
     bind=True,
-    queue="analysis",
     acks_late=True,
     reject_on_worker_lost=True,
     autoretry_for=analysis_service.TRANSIENT,

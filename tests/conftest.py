@@ -204,13 +204,27 @@ class Worker:
             self.process.wait()
 
 
-@pytest.fixture
-def worker(transactional_db, settings, tmp_path):
-    """A worker process for one test (the test must use transactional_db so the worker sees its rows)."""
+@pytest.fixture(scope="session")
+def _suite_worker(django_db_setup, django_db_blocker, tmp_path_factory):
+    from django.conf import settings
+
     _clear_broker(settings)
-    w = Worker(tmp_path / "worker.log").start()
-    yield w
-    w.stop()
+    holder = {"worker": None, "log": tmp_path_factory.mktemp("worker") / "worker.log"}
+    yield holder
+    if holder["worker"] is not None:
+        holder["worker"].stop()
+
+
+@pytest.fixture
+def worker(transactional_db, _suite_worker):
+    """A real worker process, shared by the tests that ask for it and restarted if a test killed it.
+
+    Tests that use it see the database through transactional_db, as the worker does.
+    """
+    w = _suite_worker["worker"]
+    if w is None or w.process.poll() is not None:
+        w = _suite_worker["worker"] = Worker(_suite_worker["log"]).start()
+    return w
 
 
 def wait_until(predicate, timeout: float = 60.0, interval: float = 0.2, what: str = "condition"):
