@@ -43,6 +43,9 @@ def database_from_url(url: str) -> dict:
             "PORT": str(parsed.port or ""),
             "CONN_MAX_AGE": envint("EMICASE_DB_CONN_MAX_AGE", 60),
             "CONN_HEALTH_CHECKS": True,
+            # A statement waiting this long for a lock fails (and its task retries)
+            # instead of hanging a worker; 0 = wait for ever.
+            "OPTIONS": {"options": f"-c lock_timeout={envint('EMICASE_DB_LOCK_TIMEOUT_MS', 30000)}"},
         }
     if parsed.scheme == "sqlite":
         return {"ENGINE": "django.db.backends.sqlite3", "NAME": parsed.path or ":memory:"}
@@ -114,7 +117,11 @@ else:
             "NAME": VAR_DIR / "emicase.sqlite3",
             # A worker process writes while the web process reads: wait for the
             # lock rather than fail at once.
-            "OPTIONS": {"timeout": 20, "transaction_mode": "IMMEDIATE", "init_command": "PRAGMA journal_mode=WAL;"},
+            "OPTIONS": {
+                "timeout": envint("EMICASE_SQLITE_TIMEOUT", 20),
+                "transaction_mode": "IMMEDIATE",
+                "init_command": "PRAGMA journal_mode=WAL;",
+            },
             # Tests run a real worker process, which cannot see an in-memory database.
             "TEST": {"NAME": str(VAR_DIR / "test-emicase.sqlite3")},
         }
@@ -182,6 +189,9 @@ if CELERY_BROKER_URL.startswith("filesystem://"):
         "data_folder_out": str(_queue_dir),
         "control_folder": str(_control_dir),
         "store_processed": False,
+        # The folder is polled; once a second (the default) adds up to a
+        # second to every upload's wait.
+        "polling_interval": 0.1,
     }
     CELERY_RESULT_BACKEND = os.environ.get("CELERY_RESULT_BACKEND", f"file://{VAR_DIR / 'results'}")
 else:

@@ -151,6 +151,10 @@ class Worker:
             DJANGO_SETTINGS_MODULE="tests.django_settings",
             EMICASE_DATABASE_NAME=str(connection.settings_dict["NAME"]),
             EMICASE_VAR_DIR=str(settings.VAR_DIR),
+            # Fail fast on a held lock so the reliability tests can make the
+            # database "briefly unavailable" (the task then retries).
+            EMICASE_SQLITE_TIMEOUT="1",
+            EMICASE_DB_LOCK_TIMEOUT_MS="1000",
         )
         self.concurrency = concurrency
         self.process: subprocess.Popen | None = None

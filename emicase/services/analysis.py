@@ -19,8 +19,11 @@ from django.db import InterfaceError, OperationalError, transaction
 from django.db.models import F, Q
 from django.utils import timezone
 
+from celery.exceptions import SoftTimeLimitExceeded
+
 import analysis
-from analysis import Source, TraceError
+from analysis import Peak, Source, TraceError
+from analysis.attribution import attribute
 from analysis.peaks import readings_at
 from analysis.pipeline import analyse_file
 from emicase.models import (
@@ -134,6 +137,12 @@ def _run(model: type[AnalysedUpload], pk: int, build_kwargs, store, token: str) 
         return "failed"
     except TRANSIENT:
         raise
+    except SoftTimeLimitExceeded:
+        error_id = uuid.uuid4().hex[:12]
+        log.error("analysis of %s %s hit the time limit (error id %s)", model.__name__, pk, error_id)
+        _fail(model, pk, kind=ErrorKind.INTERNAL, error_id=error_id,
+              text=f"The analysis took longer than {settings.CELERY_TASK_SOFT_TIME_LIMIT} s and was stopped.")
+        return "failed"
     except FileNotFoundError:
         _fail(model, pk, kind=ErrorKind.INTERNAL, text="The uploaded file is missing from storage.",
               error_id=uuid.uuid4().hex[:12])
@@ -309,21 +318,63 @@ def analyse_capture(capture_id: int, token: str = "") -> str:
     return _run(Capture, capture_id, _capture_kwargs, _store_capture, token)
 
 
-def case_reread(case_id: int) -> int:
-    """Re-read every analysed capture of a case at its current failing frequencies. Returns the count.
+def _attributions_json(peaks_json: list[dict], sources: list[Source]) -> list[dict]:
+    """Attribute stored peaks to the revision's current sources (no need to re-read the file)."""
+    if not peaks_json or not sources:
+        return []
+    peaks = [Peak(p["frequency_hz"], p["level"], p["prominence_db"], p.get("width_hz", 0.0)) for p in peaks_json]
+    found = attribute(peaks, sources)
+    return [
+        {"frequency_hz": a.frequency_hz, "terms": [{"source": t.source, "order": t.order} for t in a.terms],
+         "error_hz": a.error_hz}
+        for a in found
+    ]
 
-    Reads the stored envelope, not the raw file: it keeps every bucket's
-    maximum, so the highest level within tolerance survives (to within one
-    bucket's width at the window's edges).
+
+def case_reread(case_id: int) -> int:
+    """Re-read every analysed upload of a case after its inputs changed. Returns how many were re-read.
+
+    Captures are read again at the case's current open failing frequencies
+    and the team's tolerance; captures and scans are attributed again to
+    their revision's current known sources. Both come from stored results:
+    the envelope keeps every bucket's maximum, so the highest level within
+    tolerance survives (to within one bucket's width at the window's edges),
+    and the peaks are stored as found.
     """
     case = Case.objects.select_related("product__team").get(pk=case_id)
     failing = list(case.failing_frequencies.filter(is_open=True))
-    captures = Capture.objects.filter(case=case, status=AnalysisStatus.DONE).select_related("case__product__team")
+    sources_by_revision: dict[int, list[Source]] = {}
+
+    def sources(revision) -> list[Source]:
+        if revision.pk not in sources_by_revision:
+            sources_by_revision[revision.pk] = _sources_of(revision)
+        return sources_by_revision[revision.pk]
+
     n = 0
     with transaction.atomic():
+        captures = (
+            Capture.objects.select_for_update(of=("self",))
+            .filter(case=case, status=AnalysisStatus.DONE)
+            .select_related("case__product__team", "revision")
+        )
         for capture in captures:
             env = capture.envelope or {}
             if env.get("frequency_hz"):
                 capture_readings_store(capture, env["frequency_hz"], env["level"], failing)
-                n += 1
+            capture.results["attributions"] = _attributions_json(capture.results.get("peaks", []),
+                                                                 sources(capture.revision))
+            capture.save(update_fields=["results"])
+            n += 1
+        for scan in Scan.objects.select_for_update(of=("self",)).filter(case=case, status=AnalysisStatus.DONE).select_related("revision"):
+            scan.results["attributions"] = _attributions_json(scan.results.get("peaks", []), sources(scan.revision))
+            scan.save(update_fields=["results"])
+            n += 1
     return n
+
+
+def reread_enqueue(case_ids) -> None:
+    """Queue one re-read per affected case, after the caller's transaction commits."""
+    from emicase.tasks import reread_case
+
+    for case_id in sorted(set(case_ids)):
+        transaction.on_commit(lambda case_id=case_id: reread_case.delay(case_id))

@@ -28,7 +28,8 @@ def sweep_stuck(*, queued_after: timedelta = QUEUED_TIMEOUT, running_after: time
     from emicase import tasks
     from emicase.services.analysis import STALE_AFTER
 
-    running_after = running_after or STALE_AFTER
+    if running_after is None:
+        running_after = STALE_AFTER
     now = timezone.now()
     stuck = Q(status=AnalysisStatus.QUEUED, status_changed_at__lt=now - queued_after) | Q(
         status=AnalysisStatus.RUNNING, status_changed_at__lt=now - running_after
