@@ -440,6 +440,10 @@ class CaptureReading(models.Model):
             models.UniqueConstraint(fields=["capture", "failing_frequency"], name="one_reading_per_frequency")
         ]
 
+    def __str__(self) -> str:
+        level = "no reading" if self.level is None else f"{self.level:.1f}"
+        return f"capture {self.capture_id} at failing frequency {self.failing_frequency_id}: {level}"
+
 
 class Countermeasure(models.Model):
     class Kind(models.TextChoices):
@@ -487,6 +491,10 @@ class Verification(models.Model):
     class Meta:
         ordering = ["recorded_at", "id"]
 
+    def __str__(self) -> str:
+        how = f"after-scan {self.after_scan_id}" if self.after_scan_id else "levels recorded by hand"
+        return f"verification {self.pk} of countermeasure {self.countermeasure_id} ({how})"
+
 
 class VerificationResult(models.Model):
     """The level after the change at one failing frequency.
@@ -505,6 +513,10 @@ class VerificationResult(models.Model):
                 fields=["verification", "failing_frequency"], name="one_result_per_frequency"
             )
         ]
+
+    def __str__(self) -> str:
+        level = "not measured" if self.level_after is None else f"{self.level_after:.1f} after"
+        return f"verification {self.verification_id}, failing frequency {self.failing_frequency_id}: {level}"
 
     @property
     def change_db(self) -> float | None:

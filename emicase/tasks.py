@@ -10,6 +10,7 @@ from __future__ import annotations
 import logging
 
 from celery import shared_task
+
 from emicase.services import analysis as analysis_service
 
 log = logging.getLogger("emicase.tasks")

@@ -14,12 +14,11 @@ from collections.abc import Callable
 from datetime import timedelta
 
 import numpy as np
+from celery.exceptions import SoftTimeLimitExceeded
 from django.conf import settings
 from django.db import InterfaceError, OperationalError, transaction
 from django.db.models import F, Q
 from django.utils import timezone
-
-from celery.exceptions import SoftTimeLimitExceeded
 
 import analysis
 from analysis import Peak, Source, TraceError

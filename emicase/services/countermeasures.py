@@ -5,7 +5,14 @@ from __future__ import annotations
 from django.core.exceptions import ValidationError
 from django.db import transaction
 
-from emicase.models import Case, CaseEvent, Countermeasure, Revision, Verification, VerificationResult
+from emicase.models import (
+    Case,
+    CaseEvent,
+    Countermeasure,
+    Revision,
+    Verification,
+    VerificationResult,
+)
 from emicase.services.access import require_role
 from emicase.services.cases import event_add, stage_set_by_system
 

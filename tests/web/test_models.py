@@ -6,7 +6,15 @@ import pytest
 from django.db import IntegrityError, transaction
 from django.utils import timezone
 
-from emicase.models import Capture, Case, Countermeasure, FailingFrequency, Scan, Team, VerificationResult
+from emicase.models import (
+    Capture,
+    Case,
+    Countermeasure,
+    FailingFrequency,
+    Scan,
+    Team,
+    VerificationResult,
+)
 
 
 def _violates(fn):
