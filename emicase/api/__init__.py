@@ -1,0 +1,1 @@
+"""The REST API for bench automation (Django REST Framework)."""
