@@ -17,7 +17,10 @@ A trace file is, top to bottom:
   ``#`` comments may appear among the data.
 
 The data start at the first line holding two or more numbers and nothing
-else; the header is the line just before (if it names a column). Which columns
+else; the header is the nearest line above naming a column (it holds no
+numbers). Lines between the header and the data, or a line starting with a
+number just above headerless data, are taken for broken data rows and
+reported, never dropped. The column count is that of most of the first rows. Which columns
 are used: the first column whose name or unit says frequency or time (else
 column 1) is the x axis; the y axis is the first other column with a level or
 voltage unit, or failing that the first other column, never one named limit,
@@ -39,12 +42,20 @@ log-frequency axis; time samples uniformly spaced: every step within 0.1 % of
 the median step, plus the rounding of the printed values themselves (a
 value printed as 1.234e-06 is only known to ±5e-10).
 
+Guards: ``max_bytes`` (default 1 GiB) refuses bigger inputs before reading
+them; ``max_line_bytes`` (default 1 MiB) refuses longer lines, e.g. a binary
+file without line breaks. Binary content (NUL or control bytes, zip or gzip
+signatures, UTF-16) is refused as "not a text trace".
+
 Speed: only the first lines are looked at in Python; the data are tokenised
-and converted with numpy in blocks of about a megabyte (no Python work per
-row), so ten million rows load in about a second. Numbers with up to 15
-significant digits and a decimal exponent within ±22 — everything instruments
-write — convert exactly as Python's float() does; longer mantissas go through
-extended precision and may differ from float() in the last bit.
+and converted with numpy in blocks of 128 KiB, small enough for the
+temporaries to stay in cache (no Python work per row). Ten million rows of
+plain decimals load in roughly the time pandas' C parser takes (measured
+1.15-1.5x); exponent notation costs about twice as much again. Every number converts
+exactly as Python's float() does (correctly rounded): in one multiplication
+or division when the digits fit a double and the power of ten is exact
+(up to 15 digits, exponent within ±22 — everything instruments write), else
+through numpy's own correctly rounded string conversion.
 """
 
 from __future__ import annotations
@@ -580,36 +591,19 @@ def _token_bounds(
 # two little-endian uint64 words, lo (bytes 0-7) and hi (bytes 8-15); byte 0 is
 # the most significant digit. Ending the window at the field's end right-aligns
 # the digits for free; the bytes before the field are masked off. Character
-# classes come from plain uint8 comparisons over the (n, 16) byte matrix; the
-# count and position of points, exponent marks and digits come from popcounts
-# of the flag words; the gap the point leaves is closed with a 128-bit shift;
-# and eight digits per word are combined with the multiply-and-shift trick
-# (pairs, then fours, then eight). Every step is a whole-array operation on
-# contiguous arrays — broadcasting and 2-D table lookups measured ~30× slower.
+# classes come from plain uint8 comparisons over the (n, 16) byte matrix; counts
+# come from popcounts of the flag words; the gap the point leaves is closed by
+# moving the bytes before it one place on, with masks made from the point's
+# own flag bit; and eight digits per word are combined with the multiply-and-
+# shift trick (pairs, then fours, then eight). A field with an exponent is
+# split at its 'e' and the two parts read separately. Every step is a
+# whole-array operation on contiguous arrays: broadcasting, 2-D table lookups
+# and ufunc.accumulate measured 10-70x slower per field.
 
 _U64 = np.uint64
 _ONES = _U64(0xFFFFFFFFFFFFFFFF)
 
 
-def _masks(fill: int) -> tuple[np.ndarray, np.ndarray]:
-    """(lo, hi) word tables: entry k has bytes 0..k-1 (of 16) set to ``fill``."""
-    table = np.zeros((17, 16), dtype=np.uint8)
-    for k in range(17):
-        table[k, :k] = fill
-    words = table.view(np.uint64).reshape(17, 2)
-    return np.ascontiguousarray(words[:, 0]), np.ascontiguousarray(words[:, 1])
-
-
-_BELOW_LO, _BELOW_HI = _masks(0xFF)  # [k]: bytes before k
-_FLAG_BELOW_LO, _FLAG_BELOW_HI = _masks(0x01)  # the same, for 0/1 flag bytes
-# [k] keeps the last 16 - k bytes: index with 16 - field length
-_KEEP_LO, _KEEP_HI = ~_BELOW_LO, ~_BELOW_HI
-# Closing the point's gap, indexed by 0 (no point) or point position + 1: the
-# bytes after the point stay, those up to the point take their left neighbour.
-_STAY_LO, _STAY_HI = ~_BELOW_LO, ~_BELOW_HI
-_STAY_LO[0] = _STAY_HI[0] = _ONES
-_MOVE_LO, _MOVE_HI = _BELOW_LO.copy(), _BELOW_HI.copy()
-_MOVE_LO[0] = _MOVE_HI[0] = 0
 _PAIR_MASK = _U64(0x000000FF000000FF)
 _PAIR_MUL1 = _U64(100 + (1_000_000 << 32))
 _PAIR_MUL2 = _U64(1 + (10_000 << 32))
@@ -619,12 +613,6 @@ _MUL = np.array([1.0] * 22 + [10.0**k for k in range(23)])
 _DIV = np.array([10.0**k for k in range(22, 0, -1)] + [1.0] * 23)
 _EXACT_MANTISSA = _U64(1 << 53)
 _P10_UNKNOWN = np.int16(-32768)  # rounding step 0: for fields read by the slow path
-
-
-def _single_flag_byte(lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
-    """Index (0..15, 16 if none) of the one set flag byte; garbage if several are set."""
-    # for a single set bit x, popcount(x - 1) is its position (64 for x = 0)
-    return (np.bitwise_count(lo - _U64(1)) + np.bitwise_count(hi - _U64(1)) * (lo == 0)) >> 3
 
 
 def _count(lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
@@ -652,46 +640,53 @@ _POW10 = 10.0 ** np.arange(23)
 _FEW = 4096  # fields per block worth a correctly rounded float() each
 
 
+def _view(buf: np.ndarray, width: int) -> np.ndarray:
+    """Overlapping fixed-width view of the buffer: element i is bytes i .. i + width - 1."""
+    return np.ndarray(shape=(buf.size - width + 1,), dtype=f"V{width}", buffer=buf, strides=(1,))
+
+
 def _redo_hard(
-    buf: np.ndarray,
+    view32: np.ndarray,
     starts: np.ndarray,
     ends: np.ndarray,
     idx: np.ndarray,
-    mantissa: np.ndarray,
-    p10: np.ndarray,
     value: np.ndarray,
+    comma_decimal: bool,
 ) -> None:
-    """Recompute |value| where mantissa·10**p10 is not one exact operation in doubles.
+    """Recompute |value| for fields where mantissa·10**p10 is not one exact double operation.
 
-    A few fields go through Python's correctly rounded float(); a block full
-    of them (e.g. 17-digit exports) uses 80-bit extended precision, which can
-    differ from float() in the last bit.
+    Those are 16-digit mantissas and exponents beyond ±22: rare. A few go
+    through Python's float(), many through numpy's string-to-float cast; both
+    are correctly rounded.
     """
     if idx.size <= _FEW:
         for k in idx:  # a handful of fields, not every row
-            token = buf[starts[k] : ends[k]].tobytes().replace(b",", b".")
-            value[k] = abs(float(token))
+            token = view32[starts[k]].tobytes()[: ends[k] - starts[k]]
+            value[k] = abs(float(token.replace(b",", b".")))
         return
-    m = mantissa[idx].astype(np.longdouble)
-    p = p10[idx]
-    scale = np.power(np.longdouble(10), np.abs(p).astype(np.longdouble))
-    with np.errstate(over="ignore", under="ignore"):
-        value[idx] = np.where(p >= 0, m * scale, m / scale).astype(np.float64)
+    # fields that passed are at most 16 + 5 characters (mantissa, 'e', sign, 3 digits)
+    raw = view32[starts[idx]].view(np.uint8).reshape(idx.size, 32).copy()
+    raw[np.arange(32)[None, :] >= (ends[idx] - starts[idx])[:, None]] = 0
+    if comma_decimal:
+        raw[raw == _COMMA] = _DOT
+    with np.errstate(over="ignore"):  # 1e500 is inf; the finiteness check reports it
+        value[idx] = np.abs(raw.view("S32").ravel().astype(np.float64))
 
 
-def _parse_plain(
-    buf: np.ndarray,
+def _mantissas(
     view16: np.ndarray,
     starts: np.ndarray,
     ends: np.ndarray,
     comma_decimal: bool,
-    want_p10: bool,
-) -> tuple[np.ndarray, np.ndarray | None, np.ndarray]:
-    """The common case of _parse_general: fields without an exponent, a little faster.
+    first: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Read ``[sign] digits [point digits]`` fields of at most 16 characters.
 
-    Returns (values, p10 or None unless ``want_p10``, ok); ``ok`` is False for
-    anything but ``[sign] digits [point digits]`` in at most 16 characters
-    (so also for every field with an exponent).
+    ``first`` holds each field's first byte. Returns (mantissa, fraction
+    digits, ok): the digits as one uint64 integer and how many of them follow
+    the point, so the field's value is ±mantissa / 10**fraction_digits;
+    ``ok`` is False for any other field (a field longer than the 16-byte
+    window cannot pass the count test).
     """
     n = starts.size
     length = ends - starts
@@ -707,12 +702,10 @@ def _parse_plain(
         is_point |= window == _COMMA
     digit_lo, digit_hi = _words(is_digit, flag_lo, flag_hi)
     point_lo, point_hi = _words(is_point, flag_lo, flag_hi)
-    first = buf[starts]
     has_sign = (first == _PLUS) | (first == _MINUS)
     n_digit = _count(digit_lo, digit_hi)
     n_point = _count(point_lo, point_hi)
-    # only digits, at most one point and a leading sign: then the counts add up
-    # to the length (a field longer than the 16-byte window cannot add up)
+    # only digits, at most one point and a leading sign: then the counts add up to the length
     ok = (n_digit + n_point + has_sign == length) & (n_point <= 1) & (n_digit != 0)
     has_point = n_point != 0
     np.multiply(digit, is_digit, out=digit)  # digit values; everything else 0
@@ -731,133 +724,104 @@ def _parse_plain(
     moved_bytes = (np.bitwise_count(move_lo) + np.bitwise_count(move_hi)) >> 3
     fraction_digits = (np.uint8(16) - moved_bytes) * has_point
     mantissa = _eight_digits(lo) * _U64(100_000_000) + _eight_digits(hi)
-    # p10 = -fraction_digits in 0..-15: one correctly rounded division
-    value = mantissa.astype(np.float64) / _POW10[fraction_digits]
-    hard = ok & (mantissa > _EXACT_MANTISSA)
-    if hard.any():  # 16-digit mantissas are not exact in a double
-        _redo_hard(
-            buf,
-            starts,
-            ends,
-            np.flatnonzero(hard),
-            mantissa,
-            -fraction_digits.astype(np.int64),
-            value,
-        )
-    np.negative(value, out=value, where=first == _MINUS)
-    p10 = -fraction_digits.astype(np.int16) if want_p10 else None
-    return value, p10, ok
+    return mantissa, fraction_digits, ok
 
 
-def _shift_bytes_up(
-    lo: np.ndarray, hi: np.ndarray, nbytes: np.ndarray
-) -> tuple[np.ndarray, np.ndarray]:
-    """Move every byte of the 128-bit (lo, hi) ``nbytes`` places towards byte 15."""
-    bits = nbytes << _U64(3)
-    # shifts of 64 or more give 0 in numpy, so one formula covers 0..16 bytes
-    new_hi = (hi << bits) | (lo >> (_U64(64) - bits)) | (lo << (bits - _U64(64)))
-    return lo << bits, new_hi
-
-
-def _parse_general(
+def _parse_plain(
     buf: np.ndarray,
     view16: np.ndarray,
     starts: np.ndarray,
     ends: np.ndarray,
     comma_decimal: bool,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Convert fields, exponents included, to float64 without a Python loop per field.
+    want_p10: bool,
+) -> tuple[np.ndarray, np.ndarray | None, np.ndarray]:
+    """Convert fields without an exponent to float64, with no Python loop per field.
 
-    Returns (values, p10, ok) like _parse_plain; ``ok`` is False for anything
-    but ``[sign] digits [point digits] [e [sign] 1-3 digits]`` in at most 16
-    characters. The exponent mark and its sign are located from flag words as
-    the point is; the mantissa is then shifted to end at byte 15 and read as
-    in _parse_plain.
+    Returns (values, p10 or None unless ``want_p10``, ok): ``p10`` is the
+    decimal exponent of each field's last printed digit (its rounding step is
+    10**p10); ``ok`` is False for anything but ``[sign] digits [point digits]``
+    in at most 16 characters (so also for every field with an exponent).
     """
+    first = buf[starts]
+    mantissa, fraction_digits, ok = _mantissas(view16, starts, ends, comma_decimal, first)
+    # p10 = -fraction_digits in 0..-15: one correctly rounded division
+    value = mantissa.astype(np.float64) / _POW10[fraction_digits]
+    hard = ok & (mantissa > _EXACT_MANTISSA)
+    if hard.any():  # 16-digit mantissas are not exact in a double
+        _redo_hard(_view(buf, 32), starts, ends, np.flatnonzero(hard), value, comma_decimal)
+    np.negative(value, out=value, where=first == _MINUS)
+    p10 = -fraction_digits.astype(np.int16) if want_p10 else None
+    return value, p10, ok
+
+
+_U32 = np.uint32
+
+
+def _exponents(
+    buf: np.ndarray, view4: np.ndarray, starts: np.ndarray, ends: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Read exponents ``[sign] 1-3 digits`` (the text after the 'e'); returns (int16 values, ok)."""
     n = starts.size
     length = ends - starts
-    cut = (16 - np.minimum(length, 16)).astype(np.uint64)
-    keep_lo = _ONES << (cut << _U64(3))
-    keep_hi = _ONES << ((np.maximum(cut, _U64(8)) - _U64(8)) << _U64(3))
-    flag_lo, flag_hi = keep_lo & _FLAGS, keep_hi & _FLAGS
-    window = view16[ends - 16].view(np.uint8).reshape(n, 16)
+    cut = (4 - np.minimum(length, 4)).astype(np.uint32)
+    keep = _U32(0xFFFFFFFF) << (cut << _U32(3))  # the field's bytes of the 4 ending at its end
+    window = view4[ends - 4].view(np.uint8).reshape(n, 4)
     digit = window - np.uint8(48)
     is_digit = digit < 10
-    is_point = window == _DOT
-    if comma_decimal:
-        is_point |= window == _COMMA
-    is_e = (window | np.uint8(32)) == np.uint8(101)
-    is_minus = window == _MINUS
-    is_sign = is_minus | (window == _PLUS)
-    digit_lo, digit_hi = _words(is_digit, flag_lo, flag_hi)
-    point_lo, point_hi = _words(is_point, flag_lo, flag_hi)
-    e_lo, e_hi = _words(is_e, flag_lo, flag_hi)
-    sign_lo, sign_hi = _words(is_sign, flag_lo, flag_hi)
-    minus_lo, minus_hi = _words(is_minus, flag_lo, flag_hi)
+    np.multiply(digit, is_digit, out=digit)
     first = buf[starts]
     has_sign = (first == _PLUS) | (first == _MINUS)
+    n_digit = np.bitwise_count(is_digit.view(np.uint32).ravel() & keep)
+    ok = (n_digit + has_sign == length) & (n_digit != 0) & (n_digit <= 3)
+    v = digit.view(np.uint32).ravel() & keep
+    exponent = (v >> _U32(24)).astype(np.int16)
+    exponent += ((v >> _U32(16)) & _U32(0xFF)).astype(np.int16) * np.int16(10)
+    exponent += ((v >> _U32(8)) & _U32(0xFF)).astype(np.int16) * np.int16(100)
+    np.negative(exponent, out=exponent, where=first == _MINUS)
+    return exponent, ok
 
-    # bytes before the exponent mark (all 16 when there is none): f - 1 for its flag bit f
-    below_lo = e_lo - _U64(1)
-    below_hi = (e_hi - _U64(1)) * (e_lo == 0)
-    e_at = (np.bitwise_count(below_lo) + np.bitwise_count(below_hi)) >> 3  # 16 if none
-    has_e = e_at != 16
-    # the byte after the mark: an exponent sign?
-    after_lo = e_lo << _U64(8)
-    after_hi = (e_hi << _U64(8)) | (e_lo >> _U64(56))
-    has_e_sign = ((after_lo & sign_lo) | (after_hi & sign_hi)) != 0
-    e_negative = ((after_lo & minus_lo) | (after_hi & minus_hi)) != 0
 
-    n_digit = _count(digit_lo, digit_hi)
-    n_point = _count(point_lo, point_hi)
-    n_e = _count(e_lo, e_hi)
-    n_sign = _count(sign_lo, sign_hi)
-    n_mantissa = _count(digit_lo & below_lo, digit_hi & below_hi)
-    n_exp = n_digit - n_mantissa
-    ok = (
-        (length <= 16)
-        & (n_digit + n_point + n_e + n_sign == length)  # nothing but these characters
-        & (n_point <= 1)
-        & (n_e <= 1)
-        & (n_sign == has_sign.astype(np.uint8) + has_e_sign)  # signs only first and after the mark
-        & (n_mantissa != 0)
-        & (((point_lo & ~below_lo) | (point_hi & ~below_hi)) == 0)  # the point before the mark
-        & (~has_e | ((n_exp >= 1) & (n_exp <= 3)))
-    )
+def _parse_general(
+    buf: np.ndarray,
+    view16: np.ndarray,
+    view4: np.ndarray,
+    starts: np.ndarray,
+    ends: np.ndarray,
+    lo: int,
+    hi: int,
+    comma_decimal: bool,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Convert the fields of buf[lo:hi], exponents included, to float64.
 
-    np.multiply(digit, is_digit, out=digit)
-    lo, hi = _words(digit, keep_lo, keep_hi)
-    # the exponent's digits are the last n_exp bytes
-    exponent = (hi >> _U64(56)).astype(np.int16)
-    exponent += ((hi >> _U64(48)) & _U64(0xFF)).astype(np.int16) * np.int16(10) * (n_exp >= 2)
-    exponent += ((hi >> _U64(40)) & _U64(0xFF)).astype(np.int16) * np.int16(100) * (n_exp >= 3)
+    Each field is split at its exponent mark ('e' or 'E'): the mantissa is
+    read as in _parse_plain and the exponent by _exponents. Returns (values,
+    p10, ok) like _parse_plain; ``ok`` is False for anything but
+    ``[sign] digits [point digits] [e [sign] 1-3 digits]`` with a mantissa of
+    at most 16 characters.
+    """
+    n = starts.size
+    w = buf[lo:hi]
+    marks = np.flatnonzero((w | np.uint8(32)) == np.uint8(101)) + lo
+    if marks.size == n and bool(np.all(marks > starts)) and bool(np.all(marks < ends)):
+        mark_at, has_e, single = marks, np.ones(n, dtype=bool), np.ones(n, dtype=bool)
+    else:  # some fields without a mark (or with several): find each mark's field
+        owner = np.searchsorted(starts, marks, side="right") - 1
+        per_field = np.bincount(owner, minlength=n)
+        mark_at = ends.copy()
+        mark_at[owner] = marks
+        has_e, single = per_field > 0, per_field <= 1
+    first = buf[starts]
+    mantissa, fraction_digits, ok = _mantissas(view16, starts, mark_at, comma_decimal, first)
+    exponent, exp_ok = _exponents(buf, view4, np.minimum(mark_at + 1, ends), ends)
+    ok &= single & (exp_ok | ~has_e)
     exponent *= has_e
-    np.negative(exponent, out=exponent, where=e_negative)
-    # drop the exponent and move the mantissa (and its point) to end at byte 15
-    shift = (16 - e_at).astype(np.uint64)
-    lo, hi = _shift_bytes_up(lo & below_lo, hi & below_hi, shift)
-    point_lo, point_hi = _shift_bytes_up(point_lo, point_hi, shift)
-
-    has_point = n_point != 0
-    q_lo, q_hi = point_lo << _U64(7), point_hi << _U64(7)
-    move_lo = (q_lo ^ (q_lo - _U64(1))) * has_point
-    move_hi = (q_hi ^ (q_hi - _U64(1))) * (point_hi != 0)
-    moved_lo = lo << _U64(8)
-    moved_hi = (hi << _U64(8)) | (lo >> _U64(56))
-    lo ^= (lo ^ moved_lo) & move_lo
-    hi ^= (hi ^ moved_hi) & move_hi
-    moved_bytes = (np.bitwise_count(move_lo) + np.bitwise_count(move_hi)) >> 3
-    fraction_digits = ((np.uint8(16) - moved_bytes) * has_point).astype(np.int16)
-    mantissa = _eight_digits(lo) * _U64(100_000_000) + _eight_digits(hi)
-
-    p10 = exponent - fraction_digits
+    p10 = exponent - fraction_digits.astype(np.int16)
     at = np.clip(p10, -22, 22) + 22
     value = mantissa.astype(np.float64) * _MUL[at] / _DIV[at]
-    # Exact (one rounding) when the mantissa is exact in a double and 10**|p10|
-    # is too; the rest are redone.
+    # exact (one rounding) when the mantissa is exact in a double and 10**|p10| is too
     hard = ok & ((mantissa > _EXACT_MANTISSA) | (p10 > 22) | (p10 < -22))
     if hard.any():
-        _redo_hard(buf, starts, ends, np.flatnonzero(hard), mantissa, p10.astype(np.int64), value)
+        _redo_hard(_view(buf, 32), starts, ends, np.flatnonzero(hard), value, comma_decimal)
     np.negative(value, out=value, where=first == _MINUS)
     return value, p10, ok
 
@@ -885,7 +849,8 @@ def _parse_long(
     values = np.full(n, np.nan)
     if candidate.any():
         try:
-            values[candidate] = raw[candidate].view("S64").ravel().astype(np.float64)
+            with np.errstate(over="ignore"):  # 1e500 is inf; the finiteness check reports it
+                values[candidate] = raw[candidate].view("S64").ravel().astype(np.float64)
         except ValueError:
             candidate[:] = False  # one of them is not a number: let the slow path say which
     return values, candidate
@@ -993,6 +958,16 @@ def _chunk_end(
     if ahead.size == 0 and limit < end:
         raise TraceError(_too_long(max_line_bytes), name=name, line=line0)
     return (hi + int(ahead[0]) + 1) if ahead.size else end
+
+
+def _check_line_lengths(
+    buf: np.ndarray, lo: int, hi: int, limit: int, line0: int, name: str
+) -> None:
+    nl = np.flatnonzero(buf[lo - 1 : hi] == _NL)  # buf[lo - 1] ends the previous line
+    lengths = np.diff(nl) - 1
+    long = np.flatnonzero(lengths > limit)
+    if long.size:
+        raise TraceError(_too_long(limit), name=name, line=line0 + int(long[0]))
 
 
 def _blank_comments(buf: np.ndarray, lo: int, hi: int) -> None:
@@ -1121,9 +1096,7 @@ def _parse_block(
         ws += (_QUOTE,)
     strict_sep = _SEP_BYTES[sep] if sep is not None and not head.quoted else None
     end = _PAD_FRONT + size + 1  # include one padding newline: the last line is terminated
-    # Overlapping fixed-width views of the buffer: element i is bytes i .. i+w-1.
-    view16 = np.ndarray(shape=(buf.size - 15,), dtype="V16", buffer=buf, strides=(1,))
-    view64 = np.ndarray(shape=(buf.size - 63,), dtype="V64", buffer=buf, strides=(1,))
+    view4, view16, view64 = _view(buf, 4), _view(buf, 16), _view(buf, 64)
     chunks: list[_Chunk] = []
     lo, line0, rows = head.data_offset, head.data_line, 0
     # Rows are at most the data's line count: size the output once, fill it in place.
@@ -1134,6 +1107,8 @@ def _parse_block(
     general = False  # becomes True once a block needs the exponent-aware parser
     while lo < end:
         hi = _chunk_end(buf, lo, end, max_line_bytes, line0, name)
+        if max_line_bytes < _CHUNK_BYTES:  # a limit below the block size: check each line
+            _check_line_lengths(buf, lo, hi, max_line_bytes, line0, name)
         if (buf[lo:hi] == ord("#")).any():
             _blank_comments(buf, lo, hi)
         n_lines = int(np.count_nonzero(buf[lo:hi] == _NL))
@@ -1146,12 +1121,16 @@ def _parse_block(
         else:
             starts, ends, _ = found
         if general:
-            values, p10, ok = _parse_general(buf, view16, starts, ends, comma_decimal)
+            values, p10, ok = _parse_general(
+                buf, view16, view4, starts, ends, lo, hi, comma_decimal
+            )
         else:
             values, p10, ok = _parse_plain(buf, view16, starts, ends, comma_decimal, want_p10)
             if np.count_nonzero(~ok) * 16 > starts.size:  # exponents, most likely
                 general = True
-                values, p10, ok = _parse_general(buf, view16, starts, ends, comma_decimal)
+                values, p10, ok = _parse_general(
+                    buf, view16, view4, starts, ends, lo, hi, comma_decimal
+                )
         bad_token = None
         if not ok.all():
             if p10 is None:

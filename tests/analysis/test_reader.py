@@ -500,6 +500,13 @@ def test_the_line_length_guard(tmp_path):
         error_of(path, max_line_bytes=1000)
         == "long.csv line 2: the line is longer than 1000 bytes; not a text trace"
     )
+    deep = write(
+        tmp_path, "deep.csv", "Frequency (kHz),Level (dBuV)\n" + rows() + "1," * 3000 + "\n"
+    )
+    assert (
+        error_of(deep, max_line_bytes=1000)
+        == "deep.csv line 22: the line is longer than 1000 bytes; not a text trace"
+    )
     no_newline = write(tmp_path, "one.csv", "1," * 3000)
     assert (
         error_of(no_newline, max_line_bytes=1000)
@@ -609,6 +616,22 @@ def test_a_file_spanning_many_blocks_reads_every_row_and_counts_lines_right(tmp_
     lines[54_321] = "oops,1"
     path.write_text("Frequency (Hz),Level (dBuV)\n" + "\n".join(lines))
     assert error_of(path) == "big.csv line 54323: 'oops' is not a number in column Frequency (Hz)"
+
+
+def test_notation_may_change_between_rows_and_blocks(tmp_path):
+    # plain decimals first, then exponent notation, and within blocks both mixed
+    n = 40_000
+    texts = []
+    for i in range(n):
+        value = (i % 97) * 0.37 - 15
+        if i < n // 2:
+            texts.append(f"{value:.2f}")
+        else:
+            texts.append(f"{value:.5e}" if i % 3 else ("0" if i % 2 else f"{value:.2f}"))
+    body = "\n".join(f"{1000 + i}.5,{t}" for i, t in enumerate(texts))
+    data = read_trace(write(tmp_path, "mixed.csv", "Frequency (Hz),Level (dBuV)\n" + body)).data
+    # reference: Python's float() of the text written
+    assert data.level.tolist() == [float(t) for t in texts]
 
 
 def test_read_frequency_table_reads_any_value_column(tmp_path):
