@@ -75,6 +75,10 @@ def test_it_reports_throughput_and_the_ratio_of_two_workers_to_one(report):
     assert throughput["rounds"] == 1 and throughput["ratio_per_round"] == [throughput["ratio"]]
     for share in throughput["occupancy"].values():
         assert 0 < share <= 1  # time between claim and finish cannot exceed the pool's time
+    for cores in throughput["cpu_cores"].values():
+        if cores is not None:  # None only where /proc is missing
+            assert set(cores) == {"worker", "bench", "servers", "others"}
+            assert cores["worker"] > 0 and all(v >= 0 for v in cores.values())
 
 
 def test_it_judges_each_target_and_says_what_it_could_not_measure(report):

@@ -78,6 +78,8 @@ QUICK_COUNTS = {"scans": 2, "records": 1, "burst": 4, "rounds": 1}
 MAX_COUNTS = {"scans": 500, "records": 50, "burst": 1000, "rounds": 10}
 
 TARGET_P50_S = 1.0
+# More than this much of a core used by unrelated programs makes a burst's figure unreliable.
+OTHERS_WARN_CORES = 0.15
 TARGET_RATIO = 1.7
 
 # ----------------------------------------------------------------- test files
@@ -417,19 +419,81 @@ def measure_latency(upload: Callable[[], object], worker: BenchWorker, n: int) -
     return out
 
 
+def cpu_snapshot(worker_pgid: int) -> dict | None:
+    """CPU ticks used so far, from Linux's /proc: the machine's busy total, and per process of
+    the worker's group, of this process, and of the database and broker servers. None without /proc.
+
+    A PostgreSQL backend counts as ours when its process title names the bench
+    database; its background processes (WAL writer, checkpointer) count too.
+    """
+    try:
+        with open("/proc/stat") as fh:
+            fields = [int(x) for x in fh.readline().split()[1:9]]
+    except OSError:
+        return None
+    database = settings.DATABASES["default"]["NAME"]
+    me = os.getpid()
+    procs: dict[int, tuple[str, int]] = {}
+    for entry in os.scandir("/proc"):
+        if not entry.name.isdigit():
+            continue
+        try:
+            with open(f"/proc/{entry.name}/stat") as fh:
+                stat = fh.read()
+            comm = stat[stat.index("(") + 1 : stat.rindex(")")]
+            rest = stat[stat.rindex(")") + 2 :].split()
+            if comm == "postgres":
+                with open(f"/proc/{entry.name}/cmdline", "rb") as fh:
+                    title = fh.read().decode(errors="replace")
+        except (OSError, ValueError):
+            continue  # the process ended meanwhile
+        pid, pgrp, ticks = int(entry.name), int(rest[2]), int(rest[11]) + int(rest[12])
+        if pgrp == worker_pgid:
+            kind = "worker"
+        elif pid == me:
+            kind = "bench"
+        elif comm == "redis-server" or (
+            comm == "postgres" and (f" {database} " in title or "(" not in title)
+        ):
+            kind = "servers"
+        else:
+            continue
+        procs[pid] = (kind, ticks)
+    # All but idle and iowait.
+    return {"busy": sum(fields) - fields[3] - fields[4], "procs": procs, "at": time.monotonic()}
+
+
+def cpu_cores(before: dict | None, after: dict | None) -> dict | None:
+    """Mean cores in use between two snapshots: worker, bench, servers, and everything else."""
+    if before is None or after is None:
+        return None
+    hz = os.sysconf("SC_CLK_TCK")
+    wall = after["at"] - before["at"]
+    used = {"worker": 0, "bench": 0, "servers": 0}
+    for pid, (kind, ticks) in after["procs"].items():
+        # A process born in between used all its ticks in between.
+        used[kind] += ticks - before["procs"].get(pid, (kind, 0))[1]
+    cores = {kind: ticks / hz / wall for kind, ticks in used.items()}
+    cores["others"] = max(0.0, (after["busy"] - before["busy"]) / hz / wall - sum(cores.values()))
+    return {kind: round(value, 3) for kind, value in cores.items()}
+
+
 def measure_burst(bench: Bench, content: bytes, worker: BenchWorker, n: int) -> dict:
     """Store n scans in one transaction, so its commit enqueues them all at once, and wait for all.
 
     Returns analyses per second (first enqueue to last seen done), the median
-    claim-to-finish time of one analysis, and the pool's occupancy: the share
-    of the worker processes' time spent between a claim and its finish; the
-    rest goes to fetching, dispatching, storing and committing.
+    claim-to-finish time of one analysis, the pool's occupancy (the share of
+    the pool processes' time spent between a claim and its finish; the rest
+    goes to fetching, dispatching, storing and committing), and the cores in
+    use meanwhile (see cpu_cores).
     """
     with transaction.atomic():
         pks = [bench.upload_scan(content).pk for _ in range(n)]
+        before = cpu_snapshot(worker.process.pid)
         # Clock starts at the commit, whose hooks publish the n messages.
         t0 = time.time()
     seen = _finished_or_fail(Scan, pks, worker, timeout=60.0 + 2.0 * n)
+    after = cpu_snapshot(worker.process.pid)
     spans = [
         (finished - started).total_seconds()
         for started, finished in Scan.objects.filter(pk__in=pks).values_list(
@@ -441,6 +505,7 @@ def measure_burst(bench: Bench, content: bytes, worker: BenchWorker, n: int) -> 
         "per_s": round(n / wall, 3),
         "claim_to_finish_median_s": round(float(np.median(spans)), 4),
         "occupancy": round(sum(spans) / (wall * worker.concurrency), 3),
+        "cpu_cores": cpu_cores(before, after),
     }
 
 
@@ -545,7 +610,18 @@ def _throughput(counts: dict, bursts: dict[int, list[dict]]) -> dict:
             "two_processes": median(2, "occupancy"),
         },
         "load_average_before": [b["load_average_before"] for b in bursts[1] + bursts[2]],
+        "cpu_cores": {
+            "one_process": _median_cores(bursts[1]),
+            "two_processes": _median_cores(bursts[2]),
+        },
     }
+
+
+def _median_cores(bursts: list[dict]) -> dict | None:
+    if any(b["cpu_cores"] is None for b in bursts):
+        return None
+    kinds = bursts[0]["cpu_cores"]
+    return {k: round(float(np.median([b["cpu_cores"][k] for b in bursts])), 3) for k in kinds}
 
 
 # ----------------------------------------------------------------- the parent: one child per configuration
@@ -705,6 +781,20 @@ def render(report: dict) -> str:
             f"{c2f['two_processes']:.3f} s; pool occupancy {occ['one_process']:.0%} | "
             f"{occ['two_processes']:.0%}",
         ]
+        cores = thr["cpu_cores"]
+        if cores["one_process"] and cores["two_processes"]:
+            c1, c2 = cores["one_process"], cores["two_processes"]
+            lines.append(
+                f"  cores in use during the bursts (c1 | c2): worker {c1['worker']:.2f} | "
+                f"{c2['worker']:.2f}; this bench {c1['bench']:.2f} | {c2['bench']:.2f}; database "
+                f"and broker servers {c1['servers']:.2f} | {c2['servers']:.2f}; other programs "
+                f"{c1['others']:.2f} | {c2['others']:.2f}"
+            )
+            if max(c1["others"], c2["others"]) > OTHERS_WARN_CORES:
+                lines.append(
+                    "  WARNING: other programs were using the CPUs during the bursts; "
+                    "the throughput figures are skewed"
+                )
         lines.append("")
     lines.append(f"Targets ({report['machine']['cpus']} CPUs here; set for a 2-core machine):")
     for t in report["targets"]:
