@@ -36,17 +36,21 @@ def envelope(
     arrays). The output x is non-decreasing and every output point is an input
     sample. Raises TraceError on bad input.
     """
-    x_arr, y_arr = _check(x, y, max_points)
+    x_arr, y_arr, largest_step = _check(x, y, max_points)
     if x_arr.size <= max_points:
         return x_arr.copy(), y_arr.copy()
-    starts = bucket_starts(x_arr, max_points=max_points, log_x=log_x)
+    starts = bucket_starts(x_arr, max_points=max_points, log_x=log_x, max_step=largest_step)
     keep = _extreme_indices(y_arr, starts)
     return x_arr[keep], y_arr[keep]
 
 
-def bucket_starts(x: np.ndarray, *, max_points: int, log_x: bool) -> np.ndarray:
+def bucket_starts(
+    x: np.ndarray, *, max_points: int, log_x: bool, max_step: float | None = None
+) -> np.ndarray:
     """Start index of every non-empty bucket of sorted ``x`` (first is 0).
 
+    ``max_step``, if given, must be at least the largest x[i+1] − x[i]; it
+    only makes the bucket-count search faster (the buckets are the same).
     Exposed so a reference implementation can rebuild the same buckets.
     """
     n_target = max(1, max_points // 2)
@@ -64,29 +68,62 @@ def bucket_starts(x: np.ndarray, *, max_points: int, log_x: bool) -> np.ndarray:
     if hi <= lo:
         return np.r_[head, n_positive_from].astype(np.int64)
 
+    def inner_starts(n_buckets: int) -> np.ndarray:
+        # Where each bucket after the first begins, dropping edges past the
+        # last sample. Sorted, since the edges are: runs of equal values are
+        # empty buckets.
+        edges = 10.0 ** (lo + (hi - lo) * np.arange(1, n_buckets) / n_buckets)
+        inner = np.searchsorted(x, edges, side="left")
+        return inner[: np.searchsorted(inner, x.size)]
+
+    # Where samples are closer together than half the narrowest bucket any
+    # count in the search gives (a margin far beyond rounding), every bucket
+    # holds a sample: from x[dense_from] on, empty buckets cannot occur, so
+    # counting them needs only the samples below (few, on a linear FFT axis)
+    # instead of a search of the whole trace for every edge.
+    dense_from = x.size
+    narrowest_decades = (hi - lo) / (budget * _MAX_BUCKET_GROWTH)
+    if max_step is not None and max_step > 0 and narrowest_decades > 1e-9:
+        relative_width = np.expm1(narrowest_decades * np.log(10.0))
+        dense_from = int(np.searchsorted(x, 2.0 * max_step / relative_width, side="left"))
+
+    def count_for(n_buckets: int) -> int:
+        if dense_from - n_positive_from < n_buckets:
+            # Bucket number of each sample up to x[dense_from]; every bucket
+            # above that one, up to x[-1]'s, holds a sample.
+            edges = 10.0 ** (lo + (hi - lo) * np.arange(1, n_buckets) / n_buckets)
+            head = np.searchsorted(edges, x[n_positive_from : dense_from + 1], side="right")
+            last = int(np.searchsorted(edges, x[-1], side="right"))
+            return 1 + int(np.count_nonzero(np.diff(head))) + last - int(head[-1])
+        inner = inner_starts(n_buckets)
+        if inner.size == 0:
+            return 1
+        # Every edge lies above x[n_positive_from], so inner ≥ n_positive_from.
+        return 1 + int(inner[0] != n_positive_from) + int(np.count_nonzero(np.diff(inner)))
+
     def starts_for(n_buckets: int) -> np.ndarray:
-        edges = 10.0 ** (lo + (hi - lo) * np.arange(n_buckets) / n_buckets)
-        inner = np.searchsorted(x, edges[1:], side="left")
-        return np.unique(np.r_[n_positive_from, inner[inner < x.size]])
+        starts = np.r_[n_positive_from, inner_starts(n_buckets)]
+        return starts[np.r_[True, starts[1:] != starts[:-1]]]
 
     # The non-empty count grows (nearly monotonically) with the bucket count;
-    # bisect for the largest count that stays within the budget.
-    best = starts_for(budget)
-    if best.size < budget:
+    # bisect for the largest count that stays within the budget. Only counts
+    # are needed on the way (no arrays of starts, no sorting).
+    best_buckets = budget
+    if count_for(budget) < budget:
         low, high = budget, budget * _MAX_BUCKET_GROWTH
         for _ in range(_SEARCH_STEPS):
             if high - low <= 1:
                 break
             mid = (low + high) // 2
-            trial = starts_for(mid)
-            if trial.size <= budget:
-                low, best = mid, trial
+            if count_for(mid) <= budget:
+                low = best_buckets = mid
             else:
                 high = mid
-    return np.r_[head, best].astype(np.int64)
+    return np.r_[head, starts_for(best_buckets)].astype(np.int64)
 
 
-def _check(x: ArrayLike, y: ArrayLike, max_points: int) -> tuple[np.ndarray, np.ndarray]:
+def _check(x: ArrayLike, y: ArrayLike, max_points: int) -> tuple[np.ndarray, np.ndarray, float]:
+    """x and y as float arrays, and the largest step of x."""
     x_arr = np.asarray(x, dtype=float)
     y_arr = np.asarray(y, dtype=float)
     if x_arr.ndim != 1 or x_arr.shape != y_arr.shape:
@@ -95,12 +132,32 @@ def _check(x: ArrayLike, y: ArrayLike, max_points: int) -> tuple[np.ndarray, np.
         )
     if int(max_points) < 2:
         raise TraceError(f"envelope needs max_points ≥ 2, got {max_points}")
-    if not (np.isfinite(x_arr).all() and np.isfinite(y_arr).all()):
+    if x_arr.size == 0:
+        return x_arr, y_arr, 0.0
+    # min and max propagate NaN and show ±inf: finite extremes, finite arrays.
+    extremes = (x_arr.min(), x_arr.max(), y_arr.min(), y_arr.max())
+    if not np.isfinite(extremes).all():
         raise TraceError("envelope needs finite numbers in x and y")
-    if x_arr.size > 1 and np.any(x_arr[1:] < x_arr[:-1]):
-        i = int(np.flatnonzero(x_arr[1:] < x_arr[:-1])[0]) + 1
-        raise TraceError(f"point {i + 1}: x must not decrease ({x_arr[i - 1]} then {x_arr[i]})")
-    return x_arr, y_arr
+    return x_arr, y_arr, _largest_step(x_arr)
+
+
+# Steps of x are taken this many at a time, in one reused buffer that stays
+# in cache, rather than as one array the size of the trace.
+_STEP_BLOCK = 1 << 16
+
+
+def _largest_step(x: np.ndarray) -> float:
+    """max(x[i+1] − x[i]) of finite x; TraceError at the first decrease."""
+    largest = 0.0
+    buffer = np.empty(min(x.size - 1, _STEP_BLOCK))
+    for a in range(0, x.size - 1, _STEP_BLOCK):
+        b = min(x.size - 1, a + _STEP_BLOCK)
+        step = np.subtract(x[a + 1 : b + 1], x[a:b], out=buffer[: b - a])
+        if step.min() < 0:
+            i = a + int(np.flatnonzero(step < 0)[0]) + 1
+            raise TraceError(f"point {i + 1}: x must not decrease ({x[i - 1]} then {x[i]})")
+        largest = max(largest, float(step.max()))
+    return largest
 
 
 def _extreme_indices(y: np.ndarray, starts: np.ndarray) -> np.ndarray:
@@ -112,7 +169,9 @@ def _extreme_indices(y: np.ndarray, starts: np.ndarray) -> np.ndarray:
         # Samples equal to their bucket's extreme; take the first per bucket.
         hits = np.flatnonzero(y == np.repeat(extreme, lengths))
         bucket = np.searchsorted(starts, hits, side="right") - 1
-        _, first = np.unique(bucket, return_index=True)
+        # hits ascend, so do their buckets: a bucket's first hit is where
+        # the bucket number changes.
+        first = np.r_[True, bucket[1:] != bucket[:-1]]
         positions.append(hits[first])
     both = np.sort(np.column_stack(positions), axis=1).ravel()
     # A bucket whose min and max are one sample yields it once.
