@@ -109,9 +109,16 @@ def find_families(
     families: list[Family] = []
     while len(families) < max_families and (~claimed).sum() >= min_peaks:
         active = ~claimed
+        orders, ok = _match(candidates, f, tol, active, max_order)
+        # A candidate matching no unclaimed peak keeps its f0 through the
+        # refinement (nothing to fit), so it matches nothing and cannot make a
+        # family now, nor later, when fewer peaks are unclaimed: drop it.
+        matched = ok.any(axis=1)
+        candidates, orders, ok = candidates[matched], orders[matched], ok[matched]
         f0 = candidates
-        for _ in range(_REFINE_PASSES):
-            orders, ok = _match(f0, f, tol, active, max_order)
+        for refinement in range(_REFINE_PASSES):
+            if refinement > 0:
+                orders, ok = _match(f0, f, tol, active, max_order)
             f0 = _refine(f0, f, tol, orders, _best_comb(orders, ok)[0])
         orders, ok = _match(f0, f, tol, active, max_order)
         keep, score, missing, highest, odd = _best_comb(orders, ok)
@@ -197,22 +204,27 @@ def _match(
     deviation = np.abs(f[None, :] - orders * f0[:, None])
     ok = active[None, :] & (orders >= 1) & (orders <= max_order) & (deviation <= tol[None, :])
 
-    # Peaks sharing an order sit next to each other in a row (f is sorted), so
-    # group runs of equal order and keep the smallest deviation of each run.
+    # Peaks sharing an order sit next to each other in a row (f is sorted).
+    # Of each run of adjacent matched peaks with one order keep the closest
+    # (the first on exact ties). Only the matched cells are looked at: they
+    # are few, and row-major order keeps each row's runs together.
     rows, cols = ok.shape
-    key = np.where(ok, orders, -1 - np.arange(cols)[None, :])
-    run_start = np.ones_like(ok)
-    run_start[:, 1:] = key[:, 1:] != key[:, :-1]
-    run_start = run_start.ravel()
-    starts = np.flatnonzero(run_start)
-    run_id = np.cumsum(run_start) - 1
-    dev = np.where(ok, deviation, np.inf).ravel()
-    closest = dev == np.minimum.reduceat(dev, starts)[run_id]
-    # Exact ties: keep the first of the run.
+    cells = np.flatnonzero(ok)
     first = np.zeros(rows * cols, dtype=bool)
-    hits = np.flatnonzero(closest & ok.ravel())
-    _, first_hit = np.unique(run_id[hits], return_index=True)
-    first[hits[first_hit]] = True
+    if cells.size == 0:
+        return orders, first.reshape(rows, cols)
+    cell_order = orders.ravel()[cells]
+    run_start = np.ones(cells.size, dtype=bool)
+    run_start[1:] = (
+        (cells[1:] != cells[:-1] + 1)
+        | (cells[1:] % cols == 0)
+        | (cell_order[1:] != cell_order[:-1])
+    )
+    run_id = np.cumsum(run_start) - 1
+    dev = deviation.ravel()[cells]
+    closest = np.flatnonzero(dev == np.minimum.reduceat(dev, np.flatnonzero(run_start))[run_id])
+    closest_run = run_id[closest]
+    first[cells[closest[np.r_[True, closest_run[1:] != closest_run[:-1]]]]] = True
     return orders, first.reshape(rows, cols)
 
 
@@ -248,29 +260,53 @@ def _best_comb(
     the highest kept order and whether the comb is odd-only.
     """
     rows, cols = ok.shape
+    # Worked on the matched cells only, in row-major order (by candidate,
+    # then by frequency): a row's matches are a contiguous segment, so counts
+    # along a row are ranks within its segment and per-row maxima a reduceat.
+    # Both readings go through at once: the odd-only reading's cells follow
+    # the others, as rows numbered from `rows` on.
+    cells = np.flatnonzero(ok)
+    cell_row = cells // cols
+    cell_order = orders.ravel()[cells]
+    cell_odd = cell_order % 2 == 1
+    odd_cells = np.flatnonzero(cell_odd)
+    chosen = np.concatenate((np.arange(cells.size), odd_cells))
+    row = np.concatenate((cell_row, cell_row[odd_cells] + rows))
     best_score = np.full(rows, -np.inf)
     best_cut = np.full(rows, -1)
     best_odd = np.zeros(rows, dtype=bool)
-    for odd_reading in (False, True):
-        mask = ok & (orders % 2 == 1) if odd_reading else ok
-        count = np.cumsum(mask, axis=1)
-        first = np.argmax(mask, axis=1)
-        lowest = orders[np.arange(rows), first][:, None]
-        span = orders - lowest
-        possible = span // 2 + 1 if odd_reading else span + 1
-        score = np.where(mask, count - _GAP_PENALTY * (possible - count), -np.inf)
+    if chosen.size:
+        order = cell_order[chosen]
+        new_row = np.r_[True, row[1:] != row[:-1]]
+        segment = np.flatnonzero(new_row)
+        segment_id = np.cumsum(new_row) - 1
+        count = np.arange(1, chosen.size + 1) - segment[segment_id]
+        span = order - order[segment][segment_id]
+        possible = np.where(row >= rows, span // 2 + 1, span + 1)
+        score = count - _GAP_PENALTY * (possible - count)
+        row_best = np.maximum.reduceat(score, segment)
         # Ties go to the longer comb: more peaks explained for the same score.
-        cut = cols - 1 - np.argmax(score[:, ::-1], axis=1)
-        row_best = score[np.arange(rows), cut]
-        better = row_best > best_score
-        best_score = np.where(better, row_best, best_score)
-        best_cut = np.where(better, cut, best_cut)
-        best_odd = np.where(better, odd_reading, best_odd)
+        at_best = np.flatnonzero(score == row_best[segment_id])
+        last = at_best[np.r_[segment_id[at_best[1:]] != segment_id[at_best[:-1]], True]]
+        cut = cells[chosen[last]] % cols
+        segment_row = row[segment]
+        # The all-orders reading first; the odd-only one where strictly better.
+        plain = segment_row < rows
+        best_score[segment_row[plain]] = row_best[plain]
+        best_cut[segment_row[plain]] = cut[plain]
+        odd_row = segment_row[~plain] - rows
+        better = row_best[~plain] > best_score[odd_row]
+        best_score[odd_row[better]] = row_best[~plain][better]
+        best_cut[odd_row[better]] = cut[~plain][better]
+        best_odd[odd_row[better]] = True
     has = best_cut >= 0
-    keep = ok & (np.arange(cols)[None, :] <= best_cut[:, None]) & has[:, None]
-    keep &= ~best_odd[:, None] | (orders % 2 == 1)
-    count = keep.sum(axis=1)
-    highest = np.where(keep, orders, 0).max(axis=1)
+    kept = (cells % cols <= best_cut[cell_row]) & (~best_odd[cell_row] | cell_odd)
+    keep = np.zeros(rows * cols, dtype=bool)
+    keep[cells[kept]] = True
+    keep = keep.reshape(rows, cols)
+    count = np.bincount(cell_row[kept], minlength=rows)
+    highest = np.zeros(rows, dtype=orders.dtype)
+    np.maximum.at(highest, cell_row[kept], cell_order[kept])
     score = np.where(has, best_score, -np.inf)
     missing = np.where(has, count - best_score, 0.0) / _GAP_PENALTY
     return keep, score, missing, highest, best_odd
