@@ -129,8 +129,14 @@ def peak_resolution_hz(spectrum: Spectrum, peaks: Sequence[Peak]) -> np.ndarray:
     """How precisely each peak's frequency is known: the trace's point spacing there."""
     if not peaks:
         return np.zeros(0)
-    steps = np.diff(spectrum.frequency_hz)
-    return np.interp([p.frequency_hz for p in peaks], spectrum.frequency_hz[1:], steps)
+    frequency_hz = spectrum.frequency_hz
+    query = np.array([p.frequency_hz for p in peaks], dtype=float)
+    # The step ending at point k is f[k] − f[k−1]; interpolating those steps
+    # at a peak needs only the few around it, not a diff of the whole trace.
+    # np.interp on that subset finds the same bracketing pair, so the same value.
+    around = np.searchsorted(frequency_hz, query)[:, None] + np.arange(-2, 3)[None, :]
+    k = np.unique(np.clip(around, 1, frequency_hz.size - 1))
+    return np.interp(query, frequency_hz[k], frequency_hz[k] - frequency_hz[k - 1])
 
 
 def analyse_file(
