@@ -119,6 +119,89 @@ def _half_window(window: str, n: int) -> np.ndarray:
     return w
 
 
+# Samples per block when the window is applied to a record: the block's
+# cosines, window values and products stay in cache, instead of a half-record
+# window array and its temporaries streaming through memory several times.
+_BLOCK_SAMPLES = 1 << 15
+
+
+def _apply_window(volts: np.ndarray, window: str) -> tuple[np.ndarray, float, float]:
+    """volts × the periodic window (a new float64 array), with Σw and Σw²
+    (see ``_window_sums``).
+
+    The same samples as ``volts * periodic_window(window, n)``: the window is
+    evaluated as in ``_half_window`` (rows of the same cosine grid, the same
+    polynomial), block by block, each block's values used at once for
+    w[k] and its mirror image w[n − k].
+    """
+    n = volts.size
+    coefficients = _check_window(window)
+    half = n // 2 + 1
+    signed = [(-1) ** m * a for m, a in enumerate(coefficients)]
+    power_basis = chebyshev.cheb2poly(signed)
+    grid_block = max(1, math.isqrt(half - 1) + 1)
+    grid_rows = -(-half // grid_block)
+    step = 2.0 * np.pi / n
+    coarse = step * grid_block * np.arange(grid_rows)
+    fine = step * np.arange(grid_block)
+    cos_coarse, sin_coarse = np.cos(coarse), np.sin(coarse)
+    cos_fine, sin_fine = np.cos(fine), np.sin(fine)
+    rows_per_block = max(1, _BLOCK_SAMPLES // grid_block)
+    # Samples k ≥ 1 below this have a mirror image n − k in the second half.
+    mirror_stop = n - half + 1
+    # One set of block buffers, reused: fresh block-sized arrays would be
+    # fetched from the system (and page-faulted) on every block.
+    c_buffer = np.empty(rows_per_block * grid_block)
+    w_buffer = np.empty_like(c_buffer)
+    scratch = np.empty_like(c_buffer)
+
+    work = np.empty(n)
+    for row in range(0, grid_rows, rows_per_block):
+        rows = slice(row, row + rows_per_block)
+        grid_cells = (min(grid_rows, row + rows_per_block) - row) * grid_block
+        grid = c_buffer[:grid_cells].reshape(-1, grid_block)
+        np.multiply.outer(cos_coarse[rows], cos_fine, out=grid)
+        grid -= np.multiply.outer(
+            sin_coarse[rows], sin_fine, out=scratch[:grid_cells].reshape(grid.shape)
+        )
+        a = row * grid_block
+        b = min(half, a + grid_cells)
+        c = c_buffer[: b - a]
+        w = w_buffer[: b - a]
+        if len(power_basis) == 1:
+            w.fill(power_basis[0])
+        else:
+            np.multiply(c, power_basis[-1], out=w)
+            w += power_basis[-2]
+            for coefficient in power_basis[-3::-1]:
+                w *= c
+                w += coefficient
+        np.multiply(volts[a:b], w, out=work[a:b])
+        k0, k1 = max(a, 1), min(b, mirror_stop)
+        if k1 > k0:
+            np.multiply(
+                volts[n - k1 + 1 : n - k0 + 1],
+                w[k0 - a : k1 - a][::-1],
+                out=work[n - k1 + 1 : n - k0 + 1],
+            )
+    return work, *_window_sums(window, n)
+
+
+def _window_sums(window: str, n: int) -> tuple[float, float]:
+    """Σw and Σw² of the n-point periodic window.
+
+    Over whole periods Σ cos(2πmk/n) vanishes for 0 < m < n, so a cosine-sum
+    window of M + 1 terms has Σw = n·a0 and, once n > 2M (the cross terms
+    cos(2π(m ± m')k/n) vanish too), Σw² = n·(a0² + ½·Σ a_m²) — exact, where
+    summing the samples would add rounding. Shorter windows are summed.
+    """
+    a = _COSINE_COEFFICIENTS[window]
+    if n > 2 * (len(a) - 1):
+        return n * a[0], n * (a[0] ** 2 + 0.5 * sum(x * x for x in a[1:]))
+    w = periodic_window(window, n)
+    return float(w.sum()), float(np.sum(w * w))
+
+
 def periodic_window(window: str, n: int) -> np.ndarray:
     """The full n-point periodic window, equal to
     ``scipy.signal.get_window(SCIPY_WINDOW_NAMES[window], n, fftbins=True)``."""
@@ -131,17 +214,6 @@ def periodic_window(window: str, n: int) -> np.ndarray:
     full[: half.size] = half
     full[half.size :] = half[n - half.size : 0 : -1]
     return full
-
-
-def _window_sums(half: np.ndarray, n: int) -> tuple[float, float]:
-    """Σw and Σw² of the full window from its first half."""
-    s1 = 2.0 * float(half.sum()) - half[0]
-    s2 = 2.0 * float(half @ half) - half[0] ** 2
-    if n % 2 == 0:
-        # w[n/2] has no mirror image.
-        s1 -= half[-1]
-        s2 -= half[-1] ** 2
-    return s1, s2
 
 
 def figures_of_samples(samples: np.ndarray) -> WindowFigures:
@@ -257,8 +329,10 @@ def amplitude_spectrum(
     and at the end (1.0). Raises TraceError for records that are too short,
     have no usable sample rate, or contain NaN/inf samples.
 
-    Memory: one float64 copy of the record (windowed), the complex FFT and the
-    level array, never all three at once beyond the FFT call itself.
+    Memory: the windowed float64 copy of the record and the complex FFT (of
+    about the same size) at the peak, i.e. twice the record's float64 size;
+    the level and frequency arrays are then written into the two halves of
+    the copy. The window is applied block by block, never held whole.
     """
     volts, fs = _check_record(record)
     n = volts.size
@@ -271,36 +345,48 @@ def amplitude_spectrum(
             work = np.asarray(volts, dtype=np.float64)
             coherent_sum, square_sum = float(n), float(n)
         else:
-            half = _half_window(window, n)
-            coherent_sum, square_sum = _window_sums(half, n)
-            work = np.empty(n)
-            np.multiply(volts[: half.size], half, out=work[: half.size])
-            np.multiply(volts[half.size :], half[n - half.size : 0 : -1], out=work[half.size :])
-            del half
+            work, coherent_sum, square_sum = _apply_window(volts, window)
         if progress is not None:
             progress(0.1)
 
         spectrum = np.fft.rfft(work)
-        del work
     # Any NaN or inf sample reaches the DC bin (it sums every sample).
     if not np.isfinite(spectrum[0]):
         raise TraceError("the time record contains samples that are not finite numbers")
     if progress is not None:
         progress(0.85)
 
-    level = np.abs(spectrum[1:])
-    del spectrum
     # µV rms per unit |X_k|: 2/(N·CG) gives the amplitude, /√2 the rms.
-    level *= math.sqrt(2.0) / coherent_sum * 1e6
-    if n % 2 == 0:
-        level[-1] /= math.sqrt(2.0)
-    np.maximum(level, _FLOOR_UV, out=level)
-    np.log10(level, out=level)
-    level *= 20.0
-
+    to_uv_rms = math.sqrt(2.0) / coherent_sum * 1e6
     bin_hz = fs / n
-    frequency_hz = np.arange(1, level.size + 1, dtype=np.float64)
-    frequency_hz *= bin_hz
+    bins = spectrum.size - 1  # n // 2
+    if work is volts:  # the caller's samples: not ours to overwrite
+        level, frequency_hz = np.empty(bins), np.empty(bins)
+    else:
+        # The windowed copy is no longer needed and holds n ≥ 2·bins floats:
+        # its two halves become the level and frequency arrays. That memory
+        # is already mapped; fresh arrays this size would be page-faulted in
+        # on first touch, which costs a good part of the FFT's own time.
+        level, frequency_hz = work[:bins], work[bins : 2 * bins]
+    del work
+    # Block by block, so each block's magnitudes are scaled, clamped and
+    # turned into dB while in cache (the same operations as on whole arrays).
+    bin_offsets = np.arange(1, min(level.size, _BLOCK_SAMPLES) + 1, dtype=np.float64)
+    for a in range(0, level.size, _BLOCK_SAMPLES):
+        b = min(level.size, a + _BLOCK_SAMPLES)
+        block = level[a:b]
+        np.abs(spectrum[1 + a : 1 + b], out=block)
+        block *= to_uv_rms
+        if b == level.size and n % 2 == 0:
+            block[-1] /= math.sqrt(2.0)
+        np.maximum(block, _FLOOR_UV, out=block)
+        np.log10(block, out=block)
+        block *= 20.0
+        # Bin k's frequency is k·Δf, k counted exactly in float64.
+        np.add(bin_offsets[: b - a], float(a), out=frequency_hz[a:b])
+        frequency_hz[a:b] *= bin_hz
+    del spectrum
+
     enbw_bins = n * square_sum / coherent_sum**2
     if progress is not None:
         progress(1.0)
