@@ -38,12 +38,17 @@ _BUCKET_DECADES = 0.02
 _MIN_BUCKET_POINTS = 64
 _MIN_BUCKET_BINS = 512
 # A bucket's median is estimated from at most this many of its points (a
-# 1024-sample median of Rayleigh noise is good to ±0.2 dB).
+# 1024-sample median of Rayleigh noise is good to ±0.2 dB). Even, as
+# _bucket_medians assumes.
 _MAX_MEDIAN_SAMPLES = 1024
 # Quasi-random sample positions (golden-ratio sequence): unlike a fixed
 # stride they cannot lock onto a harmonic comb and sample only its lines.
+# Sorted, so that gathering them walks memory forwards (a median does not
+# depend on the order of its samples).
 _GOLDEN_RATIO_FRACTION = (math.sqrt(5.0) - 1.0) / 2.0
-_SAMPLE_FRACTIONS = np.modf(np.arange(1, _MAX_MEDIAN_SAMPLES + 1) * _GOLDEN_RATIO_FRACTION)[0]
+_SAMPLE_FRACTIONS = np.sort(
+    np.modf(np.arange(1, _MAX_MEDIAN_SAMPLES + 1) * _GOLDEN_RATIO_FRACTION)[0]
+)
 # The Rayleigh threshold assumes the median floor is known; the estimate
 # scatters by 0.2–0.5 dB (see above), and a floor 0.3 dB low multiplies the
 # false-alarm rate several times over, so FFT thresholds carry this margin.
@@ -117,9 +122,12 @@ def _bucket_medians(
         offsets = (_SAMPLE_FRACTIONS[None, :] * lengths[crowded, None]).astype(np.intp)
         offsets += starts[crowded, None]
         values = level[offsets]
-        middle = [(_MAX_MEDIAN_SAMPLES - 1) // 2, _MAX_MEDIAN_SAMPLES // 2]
-        values.partition(middle, axis=1)
-        median[crowded] = 0.5 * (values[:, middle[0]] + values[:, middle[1]])
+        # An even count: the median is the mean of the two middle values.
+        # Once partitioned at the upper one, everything left of it is the
+        # smaller half, whose maximum is the lower one: one selection, not two.
+        upper = _MAX_MEDIAN_SAMPLES // 2
+        values.partition(upper, axis=1)
+        median[crowded] = 0.5 * (values[:, :upper].max(axis=1) + values[:, upper])
         samples.append(values)
     if not crowded.all():
         count = lengths[~crowded]
