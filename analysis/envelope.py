@@ -15,6 +15,8 @@ ones fill ``max_points`` as closely as possible.
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 from numpy.typing import ArrayLike
 
@@ -134,11 +136,17 @@ def _check(x: ArrayLike, y: ArrayLike, max_points: int) -> tuple[np.ndarray, np.
         raise TraceError(f"envelope needs max_points ≥ 2, got {max_points}")
     if x_arr.size == 0:
         return x_arr, y_arr, 0.0
-    # min and max propagate NaN and show ±inf: finite extremes, finite arrays.
-    extremes = (x_arr.min(), x_arr.max(), y_arr.min(), y_arr.max())
-    if not np.isfinite(extremes).all():
-        raise TraceError("envelope needs finite numbers in x and y")
-    return x_arr, y_arr, _largest_step(x_arr)
+    largest_step = _largest_step(x_arr)
+    # Where x does not decrease its extremes are its ends; min and max of y
+    # propagate NaN and show ±inf. Anything amiss is then looked for in full.
+    if not np.isfinite((largest_step, x_arr[0], x_arr[-1], y_arr.min(), y_arr.max())).all():
+        if not (np.isfinite(x_arr).all() and np.isfinite(y_arr).all()):
+            raise TraceError("envelope needs finite numbers in x and y")
+        decreasing = np.flatnonzero(x_arr[1:] < x_arr[:-1])
+        if decreasing.size:
+            i = int(decreasing[0]) + 1
+            raise TraceError(f"point {i + 1}: x must not decrease ({x_arr[i - 1]} then {x_arr[i]})")
+    return x_arr, y_arr, largest_step
 
 
 # Steps of x are taken this many at a time, in one reused buffer that stays
@@ -147,32 +155,41 @@ _STEP_BLOCK = 1 << 16
 
 
 def _largest_step(x: np.ndarray) -> float:
-    """max(x[i+1] − x[i]) of finite x; TraceError at the first decrease."""
+    """max(x[i+1] − x[i]), or NaN as soon as a step is negative or NaN."""
     largest = 0.0
     buffer = np.empty(min(x.size - 1, _STEP_BLOCK))
-    for a in range(0, x.size - 1, _STEP_BLOCK):
-        b = min(x.size - 1, a + _STEP_BLOCK)
-        step = np.subtract(x[a + 1 : b + 1], x[a:b], out=buffer[: b - a])
-        if step.min() < 0:
-            i = a + int(np.flatnonzero(step < 0)[0]) + 1
-            raise TraceError(f"point {i + 1}: x must not decrease ({x[i - 1]} then {x[i]})")
-        largest = max(largest, float(step.max()))
+    with np.errstate(over="ignore", invalid="ignore"):
+        for a in range(0, x.size - 1, _STEP_BLOCK):
+            b = min(x.size - 1, a + _STEP_BLOCK)
+            step = np.subtract(x[a + 1 : b + 1], x[a:b], out=buffer[: b - a])
+            if not step.min() >= 0:
+                return math.nan
+            largest = max(largest, float(step.max()))
     return largest
 
 
 def _extreme_indices(y: np.ndarray, starts: np.ndarray) -> np.ndarray:
     """Indices of each bucket's first minimum and first maximum, in order."""
     lengths = np.diff(np.r_[starts, y.size])
+    extremes = (np.minimum.reduceat(y, starts), np.maximum.reduceat(y, starts))
+    # Samples equal to their bucket's extreme, looked for in runs of whole
+    # buckets of about _STEP_BLOCK samples, so that the per-sample work stays
+    # in cache.
+    group = np.unique(np.searchsorted(starts, np.arange(0, y.size, _STEP_BLOCK), side="right") - 1)
+    hits: tuple[list[np.ndarray], list[np.ndarray]] = ([], [])
+    for g0, g1 in zip(group.tolist(), [*group[1:].tolist(), starts.size], strict=True):
+        a = int(starts[g0])
+        b = int(starts[g1]) if g1 < starts.size else y.size
+        for found, extreme in zip(hits, extremes, strict=True):
+            expected = np.repeat(extreme[g0:g1], lengths[g0:g1])
+            found.append(a + np.flatnonzero(y[a:b] == expected))
     positions = []
-    for reduce in (np.minimum, np.maximum):
-        extreme = reduce.reduceat(y, starts)
-        # Samples equal to their bucket's extreme; take the first per bucket.
-        hits = np.flatnonzero(y == np.repeat(extreme, lengths))
-        bucket = np.searchsorted(starts, hits, side="right") - 1
-        # hits ascend, so do their buckets: a bucket's first hit is where
+    for found in hits:
+        at = np.concatenate(found)
+        bucket = np.searchsorted(starts, at, side="right") - 1
+        # Hits ascend, so do their buckets: a bucket's first hit is where
         # the bucket number changes.
-        first = np.r_[True, bucket[1:] != bucket[:-1]]
-        positions.append(hits[first])
+        positions.append(at[np.r_[True, bucket[1:] != bucket[:-1]]])
     both = np.sort(np.column_stack(positions), axis=1).ravel()
     # A bucket whose min and max are one sample yields it once.
     return both[np.r_[True, both[1:] != both[:-1]]]
