@@ -24,22 +24,11 @@ from __future__ import annotations
 
 import argparse
 import json
-import re
 import sys
 
 from analysis.errors import TraceError
+from analysis.frequencies import parse_frequency
 from analysis.types import Source
-
-_SI = {"": 1.0, "k": 1e3, "m": 1e6, "g": 1e9}
-_FREQ = re.compile(r"^\s*([0-9]*\.?[0-9]+(?:[eE][-+]?[0-9]+)?)\s*([kKmMgG]?)(?:[hH][zZ])?\s*$")
-
-
-def parse_frequency(text: str) -> float:
-    """``25e6``, ``25MHz``, ``2.2 MHz``, ``125k`` → Hz. ValueError with a clear message otherwise."""
-    m = _FREQ.match(text)
-    if not m:
-        raise ValueError(f"'{text}' is not a frequency (e.g. 25e6, 25MHz, 2.2 MHz)")
-    return float(m.group(1)) * _SI[m.group(2).lower()]
 
 
 def parse_source(text: str) -> Source:
