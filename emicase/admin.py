@@ -156,3 +156,19 @@ class CaseEventAdmin(admin.ModelAdmin):
     list_display = ["at", "case", "kind", "actor", "text"]
     list_filter = ["kind"]
     list_select_related = ["case", "actor"]
+
+
+# The signature search index is derived data (services.search writes it,
+# ``manage.py reindex_signatures`` rebuilds it): listed for inspection.
+@admin.register(models.SignatureItem)
+class SignatureItemAdmin(admin.ModelAdmin):
+    list_display = ["id", "case", "source", "emission_kind", "indexed_at"]
+    list_filter = ["source", "emission_kind"]
+    raw_id_fields = ["case", "scan", "capture"]
+
+
+@admin.register(models.SignatureRow)
+class SignatureRowAdmin(admin.ModelAdmin):
+    list_display = ["id", "case", "role", "frequency_hz", "emission_kind", "outcome"]
+    list_filter = ["role", "outcome", "emission_kind"]
+    raw_id_fields = ["item", "case", "team", "product"]

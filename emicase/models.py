@@ -560,3 +560,90 @@ class CaseEvent(models.Model):
 
     def __str__(self) -> str:
         return f"{self.at:%Y-%m-%d %H:%M} {self.get_kind_display()}"
+
+
+# ----------------------------------------------------------------- signature search index
+
+
+class SignatureItem(models.Model):
+    """One indexed frequency signature of a case: a scan's, a probe capture's, or its failing frequencies'.
+
+    Derived data, written by ``services.search`` when a scan or capture is
+    analysed (in the same transaction) and when the case closes, and rebuilt
+    from the stored results by ``manage.py reindex_signatures``. After-scans
+    and after-captures of a countermeasure are not indexed: they show the
+    problem fixed, not the problem.
+    """
+
+    class Source(models.TextChoices):
+        SCAN = "scan", "Scan"
+        CAPTURE = "capture", "Probe capture"
+        FAILING = "failing", "Failing frequencies"
+
+    case = models.ForeignKey(Case, on_delete=models.CASCADE, related_name="signature_items")
+    source = models.CharField(max_length=8, choices=Source.choices)
+    scan = models.OneToOneField(Scan, on_delete=models.CASCADE, null=True, blank=True, related_name="+")
+    capture = models.OneToOneField(Capture, on_delete=models.CASCADE, null=True, blank=True, related_name="+")
+    # Blank for near-field captures and failing frequencies of unknown kind.
+    emission_kind = models.CharField(max_length=10, choices=Scan.EmissionKind.choices, blank=True)
+    indexed_at = models.DateTimeField(default=timezone.now)
+
+    class Meta:
+        constraints = [
+            models.CheckConstraint(
+                condition=(Q(source="scan") & Q(scan__isnull=False) & Q(capture__isnull=True))
+                | (Q(source="capture") & Q(capture__isnull=False) & Q(scan__isnull=True))
+                | (Q(source="failing") & Q(scan__isnull=True) & Q(capture__isnull=True)),
+                name="signature_item_source_matches",
+            ),
+            models.UniqueConstraint(
+                fields=["case", "emission_kind"], condition=Q(source="failing"), name="one_failing_signature_per_kind"
+            ),
+        ]
+
+    def __str__(self) -> str:
+        return f"{self.get_source_display()} signature of case {self.case_id}"
+
+
+class SignatureRow(models.Model):
+    """One frequency of an indexed signature: a peak, or a harmonic family's fundamental.
+
+    The candidate search reads only this table, one range scan of the
+    frequency index per query range, so the columns its filters need are
+    copied here from the case (team, product, outcome, opened on) and the
+    item (emission kind) and kept in step by ``services.search``.
+    """
+
+    class Role(models.IntegerChoices):
+        PEAK = 0, "Peak"
+        FUNDAMENTAL = 1, "Family fundamental"
+
+    class Outcome(models.IntegerChoices):
+        OPEN = 0, "Still open"
+        FIXED = 1, "Fixed"
+        WAIVED = 2, "Accepted / waived"
+
+    item = models.ForeignKey(SignatureItem, on_delete=models.CASCADE, related_name="rows")
+    case = models.ForeignKey(Case, on_delete=models.CASCADE, related_name="+", db_index=False)
+    team = models.ForeignKey(Team, on_delete=models.CASCADE, related_name="+", db_index=False)
+    product = models.ForeignKey(Product, on_delete=models.CASCADE, related_name="+", db_index=False)
+    role = models.PositiveSmallIntegerField(choices=Role.choices)
+    frequency_hz = models.FloatField()
+    emission_kind = models.CharField(max_length=10, choices=Scan.EmissionKind.choices, blank=True)
+    outcome = models.PositiveSmallIntegerField(choices=Outcome.choices, default=Outcome.OPEN)
+    opened_on = models.DateField()
+
+    class Meta:
+        indexes = [
+            # Frequency first for the range scans; team, outcome and case after
+            # it so the default search (visibility only) reads the index alone.
+            models.Index(fields=["frequency_hz", "team", "outcome", "case"], name="signature_row_frequency"),
+            # A case's rows in scoring order, read from the index alone.
+            models.Index(fields=["case", "item", "role", "frequency_hz"], name="signature_row_case"),
+        ]
+        constraints = [
+            models.CheckConstraint(condition=Q(frequency_hz__gt=0), name="signature_row_frequency_positive"),
+        ]
+
+    def __str__(self) -> str:
+        return f"{self.get_role_display()} {self.frequency_hz / 1e6:.4f} MHz of case {self.case_id}"

@@ -39,6 +39,7 @@ from emicase.models import (
     VerificationResult,
 )
 from emicase.services.cases import event_add
+from emicase.services.search import signature_index_capture, signature_index_scan
 
 log = logging.getLogger("emicase.analysis")
 
@@ -214,6 +215,7 @@ def _store_scan(scan: Scan, result) -> None:
         scan.case = case
         event_add(case=case, kind=CaseEvent.Kind.SCAN, by=scan.uploaded_by, text=scan.original_name,
                   data={"scan": scan.pk})
+    signature_index_scan(scan=scan, signature=result.signature)
     if case is None:
         return
     verification = Verification.objects.filter(after_scan=scan).first()
@@ -305,6 +307,7 @@ def _spectrum_like(frequency_hz, level):
 
 
 def _store_capture(capture: Capture, result) -> None:
+    signature_index_capture(capture=capture, signature=result.signature)
     failing = list(capture.case.failing_frequencies.filter(is_open=True))
     capture_readings_store(capture, result.spectrum.frequency_hz, result.spectrum.level, failing)
     event_add(

@@ -8,6 +8,7 @@ from django.utils import timezone
 
 from emicase.models import Case, CaseEvent, Countermeasure, Product
 from emicase.services.access import LEAD_ROLES, require_role
+from emicase.services.search import signature_case_closed
 
 Stage = Case.Stage
 
@@ -113,6 +114,7 @@ def case_close(
     case.closed_at = timezone.now()
     case.save(update_fields=["stage", "closure", "closure_reason", "fixed_by", "closed_at"])
     case.failing_frequencies.filter(is_open=True).update(is_open=closure != Case.Closure.FIXED)
+    signature_case_closed(case=case)
     event_add(
         case=case,
         kind=CaseEvent.Kind.CLOSED,
