@@ -11,4 +11,5 @@ urlpatterns = [
     path("health/", views.health, name="health"),
     path("api/", include("emicase.api.urls")),
     path("admin/", admin.site.urls),
+    path("", include("emicase.search_urls")),
 ]
