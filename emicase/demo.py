@@ -225,4 +225,7 @@ def load_demo(*, analyse_now: bool = True) -> dict[str, int]:
     made["scans"] += 1
     cm_svc.countermeasure_verify(countermeasure=cm, verification=v, by=lead)
     case_svc.comment_add(case=radiated_case, by=lead, text="Good result. Book the test house for rev B before closing.")
+    from emicase.demo_history import load_history  # it builds on this module's trace helpers
+
+    load_history(team=team, people=people, made=made)
     return made
