@@ -210,6 +210,12 @@ class AnalysedUpload(models.Model):
     results = models.JSONField(default=dict, blank=True)
     envelope = models.JSONField(default=dict, blank=True)
 
+    # Chosen by the client that posted the file (the bench uploader sends a
+    # hash of the file and its case), so a retried upload finds its first
+    # attempt instead of storing the file twice. Unique per uploader and
+    # case (captures) or revision (scans) when given.
+    idempotency_key = models.CharField(max_length=64, blank=True)
+
     class Meta:
         abstract = True
 
@@ -334,6 +340,11 @@ class Scan(AnalysedUpload):
             models.CheckConstraint(
                 condition=Q(distance_m__isnull=True) | Q(distance_m__gt=0), name="scan_distance_positive"
             ),
+            models.UniqueConstraint(
+                fields=["revision", "uploaded_by", "idempotency_key"],
+                condition=~Q(idempotency_key=""),
+                name="scan_idempotency_key_unique",
+            ),
         ]
 
     def __str__(self) -> str:
@@ -415,6 +426,11 @@ class Capture(AnalysedUpload):
                 condition=(Q(x_mm__isnull=True) & Q(y_mm__isnull=True))
                 | (Q(x_mm__isnull=False) & Q(y_mm__isnull=False)),
                 name="capture_xy_both_or_neither",
+            ),
+            models.UniqueConstraint(
+                fields=["case", "uploaded_by", "idempotency_key"],
+                condition=~Q(idempotency_key=""),
+                name="capture_idempotency_key_unique",
             ),
         ]
 
