@@ -50,3 +50,18 @@ def unit(value) -> str:
     from emicase.charts import unit_label
 
     return unit_label(value or "")
+
+
+@register.simple_tag(takes_context=True)
+def may_write(context) -> bool:
+    """Whether the signed-in user may change anything in any of their teams (one query, once per request)."""
+    request = context.get("request")
+    if request is None or not request.user.is_authenticated:
+        return False
+    if not hasattr(request, "_emicase_may_write"):
+        from emicase.models import Membership
+
+        request._emicase_may_write = Membership.objects.filter(
+            user=request.user, role__in=[Membership.Role.LEAD, Membership.Role.ENGINEER]
+        ).exists()
+    return request._emicase_may_write

@@ -34,6 +34,10 @@ def _verdict(ok: bool) -> str:
     return "MET" if ok else "NOT MET"
 
 
+def _p95(values: list[float]) -> float:
+    return sorted(values)[max(0, int(round(0.95 * len(values))) - 1)]
+
+
 class Command(BaseCommand):
     help = (
         "Time the case page with many captures and measure a 1-million-point trace's chart payload."
@@ -119,20 +123,28 @@ class Command(BaseCommand):
         many = queries()
         for _ in range(3):
             client.get(url)
-        times_ms = []
+        wall_ms, cpu_ms = [], []
         size = 0
         for _ in range(runs):
-            start = time.perf_counter()
+            start, start_cpu = time.perf_counter(), time.process_time()
             response = client.get(url)
-            times_ms.append((time.perf_counter() - start) * 1000)
+            wall_ms.append((time.perf_counter() - start) * 1000)
+            cpu_ms.append((time.process_time() - start_cpu) * 1000)
             size = len(response.content)
-        median = statistics.median(times_ms)
-        p95 = sorted(times_ms)[max(0, int(round(0.95 * len(times_ms))) - 1)]
         out = self.stdout.write
+        # Wall time is what a user waits for; on a shared, busy machine it also counts
+        # other processes' turns, so the CPU time this process spent is printed beside it.
         out(
-            f"case page, {case.captures.count()} captures, {runs} renders: median {median:.0f} ms, "
-            f"p95 {p95:.0f} ms (target ≤ {TARGET_MS:.0f} ms): {_verdict(p95 <= TARGET_MS)}"
+            f"case page, {case.captures.count()} captures, {runs} renders: "
+            f"wall median {statistics.median(wall_ms):.0f} ms, p95 {_p95(wall_ms):.0f} ms; "
+            f"CPU median {statistics.median(cpu_ms):.0f} ms, p95 {_p95(cpu_ms):.0f} ms "
+            f"(target ≤ {TARGET_MS:.0f} ms at p95): {_verdict(_p95(wall_ms) <= TARGET_MS)}"
         )
+        load = os.getloadavg()[0]
+        if load > (os.cpu_count() or 1):
+            out(
+                f"  note: load average {load:.1f} on {os.cpu_count()} CPUs: the wall times include waiting for them"
+            )
         out(
             f"case page SQL queries: {few} with 5 captures, {many} with {n_captures}: {_verdict(few == many)}"
         )
