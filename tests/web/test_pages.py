@@ -305,6 +305,7 @@ def test_a_viewer_reads_the_case_without_write_actions_and_is_refused_changes(
 ):
     html = _client(client, viewer).get(reverse("case", args=[failing_case.pk])).content.decode()
     assert "Radiated fail" in html
+    assert reverse("log_fail") not in html  # not even in the menu
     for word in (
         "Add a capture",
         "Propose a countermeasure",
