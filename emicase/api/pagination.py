@@ -1,0 +1,9 @@
+"""Pages of list results: ``?page=N``, and ``?page_size=`` up to 500."""
+
+from rest_framework.pagination import PageNumberPagination
+
+
+class Pages(PageNumberPagination):
+    page_size = 50
+    page_size_query_param = "page_size"
+    max_page_size = 500
