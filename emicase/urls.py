@@ -10,6 +10,7 @@ urlpatterns = [
     path("signout/", auth_views.LogoutView.as_view(), name="logout"),
     path("health/", views.health, name="health"),
     path("api/", include("emicase.api.urls")),
+    path("account/", include("emicase.api.account_urls")),
     path("admin/", admin.site.urls),
     path("", include("emicase.search_urls")),
     # Logging a failing result, and a scan's own page (its status while the worker runs).
