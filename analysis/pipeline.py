@@ -54,6 +54,7 @@ class Analysis:
     signature: Signature
     envelope: tuple[np.ndarray, np.ndarray]
     warnings: tuple[str, ...]
+    peak_resolution_hz: np.ndarray
 
     @property
     def domain(self) -> str:
@@ -74,8 +75,10 @@ class Analysis:
                     "level": p.level,
                     "prominence_db": p.prominence_db,
                     "width_hz": p.width_hz,
+                    # Kept so a later re-attribution (new known sources) needs no re-read.
+                    "resolution_hz": float(r),
                 }
-                for p in self.peaks
+                for p, r in zip(self.peaks, self.peak_resolution_hz, strict=True)
             ],
             "families": [
                 {
@@ -208,4 +211,5 @@ def analyse_trace(
         signature=signature_of(peaks, families),
         envelope=env,
         warnings=tuple(trace.warnings) + tuple(warnings),
+        peak_resolution_hz=np.asarray(resolution, dtype=float),
     )

@@ -325,7 +325,10 @@ def _attributions_json(peaks_json: list[dict], sources: list[Source]) -> list[di
     if not peaks_json or not sources:
         return []
     peaks = [Peak(p["frequency_hz"], p["level"], p["prominence_db"], p.get("width_hz", 0.0)) for p in peaks_json]
-    found = attribute(peaks, sources)
+    # The resolution each peak was found with: a coarse receiver trace places a
+    # harmonic tens of kHz off, more than a crystal's tolerance times the order.
+    resolution = [p.get("resolution_hz", 0.0) for p in peaks_json]
+    found = attribute(peaks, sources, resolution_hz=resolution)
     return [
         {"frequency_hz": a.frequency_hz, "terms": [{"source": t.source, "order": t.order} for t in a.terms],
          "error_hz": a.error_hz}

@@ -138,3 +138,22 @@ def test_settings_keep_the_reliability_options():
         assert task.max_retries == 5 and task.autoretry_for
     assert settings.CELERY_WORKER_PREFETCH_MULTIPLIER == 1
     assert settings.CELERY_TASK_SOFT_TIME_LIMIT < settings.CELERY_TASK_TIME_LIMIT
+
+
+def test_a_reread_keeps_attributions_found_with_the_traces_resolution(db, case, revision, engineer):
+    # A coarse receiver trace puts the 3rd harmonic of the 25 MHz PHY clock 15 kHz off, well beyond
+    # 3 × its 1250 Hz tolerance, but within the trace's point spacing: still 3 × PHY clock.
+    from emicase.services.analysis import case_reread
+
+    scan = Scan.objects.create(
+        revision=revision, case=case, file="x.csv", original_name="x.csv", uploaded_by=engineer,
+        emission_kind="radiated", limit_id="cispr32-b-rad-10m", distance_m=10.0, measured_on=dt.date(2026, 11, 3),
+        status=AnalysisStatus.DONE,
+        results={"peaks": [{"frequency_hz": 74.985e6, "level": 36.0, "prominence_db": 20.0, "width_hz": 1e5,
+                            "resolution_hz": 60e3}]},
+    )
+    case_reread(case.pk)
+    scan.refresh_from_db()
+    assert scan.results["attributions"] == [
+        {"frequency_hz": 74.985e6, "terms": [{"source": "PHY clock", "order": 3}], "error_hz": pytest.approx(-15e3)}
+    ]
