@@ -1,9 +1,7 @@
 """emicase: the web application (Django project and app).
 
-The Celery app is imported here so ``@shared_task`` binds to it whenever
-Django starts.
+Nothing is imported here, so the stdlib-only bench uploader
+(``python -m emicase.uploader``) runs on a PC without Django or Celery. The
+Celery app is loaded by ``EmicaseConfig.ready`` whenever Django starts, so
+``@shared_task`` binds to it.
 """
-
-from emicase.celery import app as celery_app
-
-__all__ = ["celery_app"]

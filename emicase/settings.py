@@ -170,6 +170,14 @@ STORAGES = {
 MEDIA_ROOT = Path(os.environ.get("EMICASE_MEDIA_ROOT", VAR_DIR / "media")).resolve()
 MEDIA_URL = "media/"
 
+# Throttle counters (and anything else cached) must be shared by every web
+# process in production: point EMICASE_CACHE_URL at Redis there.
+if os.environ.get("EMICASE_CACHE_URL"):
+    CACHES = {"default": {"BACKEND": "django.core.cache.backends.redis.RedisCache",
+                          "LOCATION": os.environ["EMICASE_CACHE_URL"]}}
+else:
+    CACHES = {"default": {"BACKEND": "django.core.cache.backends.locmem.LocMemCache"}}
+
 LOGIN_URL = "login"
 LOGIN_REDIRECT_URL = "home"
 LOGOUT_REDIRECT_URL = "login"
