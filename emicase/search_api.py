@@ -58,7 +58,7 @@ class _FiltersSerializer(serializers.Serializer):
     )
     limit = serializers.IntegerField(
         required=False,
-        default=20,
+        default=10,
         min_value=1,
         max_value=search_svc.MAX_HITS,
         help_text="How many cases.",
@@ -269,7 +269,7 @@ class SimilarProblemsView(APIView):
                 user=request.user,
                 query=query,
                 filters=serializer.filters(),
-                limit=serializer.validated_data.get("limit", 20),
+                limit=serializer.validated_data.get("limit", 10),
             )
         except DjangoValidationError as exc:
             raise serializers.ValidationError(_field_errors(exc)) from None

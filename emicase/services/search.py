@@ -72,7 +72,7 @@ import numpy as np
 from django.conf import settings
 from django.core.exceptions import ValidationError
 from django.db import connection, transaction
-from django.db.models import F
+from django.db.models import Exists, F, OuterRef, Q
 from django.utils import timezone
 
 from analysis.errors import TraceError
@@ -572,15 +572,17 @@ class Ranked:
 
 
 def visible_teams(user) -> tuple[list[int], list[int]]:
-    """(the user's team ids, the ids of other teams that share their closed cases)."""
+    """(the user's team ids, the ids of other teams that share their closed cases), in one query."""
     if not user.is_authenticated:
         return [], []
-    mine = sorted(Membership.objects.filter(user=user).values_list("team_id", flat=True))
-    sharing = sorted(
-        Team.objects.filter(share_closed_cases=True)
-        .exclude(pk__in=mine)
-        .values_list("pk", flat=True)
+    rows = (
+        Team.objects.filter(Q(memberships__user=user) | Q(share_closed_cases=True))
+        .annotate(member=Exists(Membership.objects.filter(team=OuterRef("pk"), user=user)))
+        .values_list("pk", "member")
+        .distinct()
     )
+    mine = sorted(pk for pk, member in rows if member)
+    sharing = sorted(pk for pk, member in rows if not member)
     return mine, sharing
 
 
@@ -719,35 +721,36 @@ def _candidate_signatures(
 
     Read in the order of the (case, item, role, frequency) index, from the index alone.
     """
-    marks = ", ".join(["%s"] * len(case_ids))
+    # A fundamental comes back as minus its frequency: three numbers a row to read, not four.
     sql = (
-        f"SELECT p.item_id, p.case_id, p.role, p.frequency_hz FROM {_table(SignatureRow)} p "
-        f"WHERE p.case_id IN ({marks})"
+        f"SELECT p.item_id, p.case_id, CASE WHEN p.role = {int(Role.FUNDAMENTAL)} "
+        f"THEN -p.frequency_hz ELSE p.frequency_hz END FROM {_table(SignatureRow)} p "
+        f"WHERE p.case_id IN ({_ids(case_ids)})"
     )
-    params: list = list(case_ids)
+    params: list = []
     if emission_kind:
         sql += " AND p.emission_kind = %s"
         params.append(emission_kind)
     sql += " ORDER BY p.case_id, p.item_id, p.role, p.frequency_hz"
     with connection.cursor() as cursor:
-        cursor.execute(sql, params)
+        cursor.execute(sql, params or None)
         rows = cursor.fetchall()
     if not rows:
         return np.zeros(0, np.int64), np.zeros(0, np.int64), []
-    item = np.fromiter((r[0] for r in rows), np.int64, len(rows))
-    case = np.fromiter((r[1] for r in rows), np.int64, len(rows))
-    role = np.fromiter((r[2] for r in rows), np.int64, len(rows))
-    frequency = np.fromiter((r[3] for r in rows), float, len(rows))
+    # Ids are far below 2**53, so float64 holds them exactly.
+    table = np.array(rows, dtype=float)
+    item, case, signed = table[:, 0].astype(np.int64), table[:, 1].astype(np.int64), table[:, 2]
     starts = np.flatnonzero(np.r_[True, item[1:] != item[:-1]])
     ends = np.r_[starts[1:], item.size]
     signatures = []
     for s, e in zip(starts.tolist(), ends.tolist(), strict=True):  # one per item
-        peaks = frequency[s:e][role[s:e] == Role.PEAK]
+        values = signed[s:e]
+        peaks = values[values > 0]
         signatures.append(
             Signature(
                 frequency_hz=peaks,
                 level=np.full(peaks.size, np.nan),
-                fundamentals_hz=frequency[s:e][role[s:e] == Role.FUNDAMENTAL],
+                fundamentals_hz=-values[values < 0],
             )
         )
     return item[starts], case[starts], signatures
@@ -893,13 +896,14 @@ def _passes(row: tuple, mine: set[int], sharing: set[int], filters: Filters, que
     return not (filters.opened_to is not None and opened > filters.opened_to)
 
 
-def fixes_of(case_ids: Sequence[int]) -> dict[int, list[Fix]]:
-    """Verified countermeasures of the cases with their improvement (module docstring), in three queries."""
+def fixes_of(cases: Sequence[Case]) -> dict[int, list[Fix]]:
+    """Verified countermeasures of the cases with their improvement (module docstring), in two queries."""
+    fixed_by = {case.pk: case.fixed_by_id for case in cases}
     cms = list(
         Countermeasure.objects.filter(
-            case_id__in=list(case_ids), status=Countermeasure.Status.VERIFIED
+            case_id__in=list(fixed_by), status=Countermeasure.Status.VERIFIED
         )
-        .select_related("revision__product", "case")
+        .select_related("revision__product")
         .order_by("proposed_at", "id")
     )
     results = (
@@ -935,7 +939,7 @@ def fixes_of(case_ids: Sequence[int]) -> dict[int, list[Fix]]:
         out.setdefault(cm.case_id, []).append(
             Fix(
                 countermeasure=cm,
-                closed_the_case=cm.case.fixed_by_id == cm.pk,
+                closed_the_case=fixed_by[cm.case_id] == cm.pk,
                 improvement_db=values[0],
                 at_frequency_hz=values[1],
                 mean_improvement_db=values[2],
@@ -950,7 +954,7 @@ def search(
     user,
     query: Query,
     filters: Filters = Filters(),
-    limit: int = 20,
+    limit: int = 10,
     candidates: int = CANDIDATES,
     rows_per_range: int = ROWS_PER_RANGE,
 ) -> SearchResult:
@@ -986,10 +990,21 @@ def search(
     ]
     shown = kept[:limit]
     cases = Case.objects.select_related("product__team").in_bulk([r.case_id for r in shown])
-    items = SignatureItem.objects.select_related("scan__revision", "capture__revision").in_bulk(
-        [r.item_id for r in shown]
+    # The matched scan or capture for its name and revision, never its stored results or envelope.
+    items = (
+        SignatureItem.objects.select_related(
+            "scan__revision__product", "capture__revision__product"
+        )
+        .defer(
+            *(
+                f"{kind}__{heavy}"
+                for kind in ("scan", "capture")
+                for heavy in ("results", "envelope")
+            )
+        )
+        .in_bulk([r.item_id for r in shown])
     )
-    fixes = fixes_of([r.case_id for r in shown])
+    fixes = fixes_of(list(cases.values()))
     hits = []
     for r in shown:  # the page's hits only
         case = cases[r.case_id]
