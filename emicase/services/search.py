@@ -72,7 +72,7 @@ import numpy as np
 from django.conf import settings
 from django.core.exceptions import ValidationError
 from django.db import connection, transaction
-from django.db.models import Exists, F, OuterRef, Q
+from django.db.models import F
 from django.utils import timezone
 
 from analysis.errors import TraceError
@@ -572,17 +572,15 @@ class Ranked:
 
 
 def visible_teams(user) -> tuple[list[int], list[int]]:
-    """(the user's team ids, the ids of other teams that share their closed cases), in one query."""
+    """(the user's team ids, the ids of other teams that share their closed cases)."""
     if not user.is_authenticated:
         return [], []
-    rows = (
-        Team.objects.filter(Q(memberships__user=user) | Q(share_closed_cases=True))
-        .annotate(member=Exists(Membership.objects.filter(team=OuterRef("pk"), user=user)))
-        .values_list("pk", "member")
-        .distinct()
+    mine = sorted(Membership.objects.filter(user=user).values_list("team_id", flat=True))
+    sharing = sorted(
+        Team.objects.filter(share_closed_cases=True)
+        .exclude(pk__in=mine)
+        .values_list("pk", flat=True)
     )
-    mine = sorted(pk for pk, member in rows if member)
-    sharing = sorted(pk for pk, member in rows if not member)
     return mine, sharing
 
 
@@ -878,10 +876,28 @@ class SearchResult:
     candidates: int  # cases scored
 
 
+_ITEM_FIELDS = (
+    "case",
+    "source",
+    "emission_kind",
+    *(
+        f"{kind}__{name}"
+        for kind, names in (("scan", ("original_name",)), ("capture", ("location", "tip")))
+        for name in (
+            *names,
+            "revision__hardware_label",
+            "revision__firmware_label",
+            "revision__product__name",
+        )
+    ),
+)
+
+
 def _passes(row: tuple, mine: set[int], sharing: set[int], filters: Filters, query: Query) -> bool:
-    """The case's own row (id, team, closure, product, opened at) agrees with the index:
-    visible to the user and inside the filters."""
-    case_id, team_id, closure, product_id, opened_at = row
+    """The case's own row (id, team, closure, product[, opened at]) agrees with the index:
+    visible to the user and inside the filters. The opened-at column is there only when a
+    date filter is set."""
+    case_id, team_id, closure, product_id, *opened_at = row
     if case_id == query.case_id:
         return False
     if team_id not in mine and not (team_id in sharing and closure):
@@ -890,7 +906,9 @@ def _passes(row: tuple, mine: set[int], sharing: set[int], filters: Filters, que
         return False
     if filters.product_id is not None and product_id != filters.product_id:
         return False
-    opened = timezone.localtime(opened_at).date()
+    if not opened_at:
+        return True
+    opened = timezone.localtime(opened_at[0]).date()
     if filters.opened_from is not None and opened < filters.opened_from:
         return False
     return not (filters.opened_to is not None and opened > filters.opened_to)
@@ -975,10 +993,13 @@ def search(
     )
     # Check every ranked case against its own row (a few columns: there may be 200),
     # then load in full only the ones shown.
+    columns = ["pk", "product__team_id", "closure", "product_id"]
+    if filters.opened_from is not None or filters.opened_to is not None:
+        columns.append("opened_at")
     own_rows = {
         row[0]: row
         for row in Case.objects.filter(pk__in=[r.case_id for r in scored.ranked]).values_list(
-            "pk", "product__team_id", "closure", "product_id", "opened_at"
+            *columns
         )
     }
     mine_set, sharing_set = set(mine), set(sharing)
@@ -990,18 +1011,12 @@ def search(
     ]
     shown = kept[:limit]
     cases = Case.objects.select_related("product__team").in_bulk([r.case_id for r in shown])
-    # The matched scan or capture for its name and revision, never its stored results or envelope.
+    # The matched scan or capture: its name and revision, none of its stored results.
     items = (
         SignatureItem.objects.select_related(
             "scan__revision__product", "capture__revision__product"
         )
-        .defer(
-            *(
-                f"{kind}__{heavy}"
-                for kind in ("scan", "capture")
-                for heavy in ("results", "envelope")
-            )
-        )
+        .only(*_ITEM_FIELDS)
         .in_bulk([r.item_id for r in shown])
     )
     fixes = fixes_of(list(cases.values()))
