@@ -9,6 +9,7 @@ results in one transaction. Running the same id twice leaves the same rows.
 from __future__ import annotations
 
 import logging
+import time
 import uuid
 from collections.abc import Callable
 from datetime import timedelta
@@ -76,13 +77,15 @@ def claim(model: type[AnalysedUpload], pk: int, token: str = "") -> bool:
 
 
 def _progress_reporter(model: type[AnalysedUpload], pk: int) -> Callable[[float], None]:
-    last = [0.0]
+    last = {"at": time.monotonic(), "fraction": 0.0}
 
     def report(fraction: float) -> None:
-        # A write per tenth is plenty for a progress bar; it also keeps the row
-        # looking alive to the sweeper.
-        if fraction - last[0] >= 0.1 or fraction >= 1.0:
-            last[0] = fraction
+        # Each write is a commit of its own: write at most twice a second, which
+        # is plenty for a progress bar, keeps short files from paying for it at
+        # all, and keeps a long analysis looking alive to the sweeper.
+        now = time.monotonic()
+        if now - last["at"] >= 0.5 and fraction > last["fraction"]:
+            last.update(at=now, fraction=fraction)
             model.objects.filter(pk=pk, status=AnalysisStatus.RUNNING).update(
                 progress=min(fraction, 1.0), status_changed_at=timezone.now()
             )
