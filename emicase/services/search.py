@@ -17,8 +17,9 @@ Search, in two steps:
    same text on SQLite and PostgreSQL: one range per query frequency (its
    possible direct partners) and one per query fundamental (the stored
    fundamentals it can share), each a B-tree range scan of the frequency
-   index that reads at most ``rows_per_range`` rows, those nearest the
-   range's centre (half from each side). Grouped by case, the pre-score sums
+   index that reads at most ``rows_per_range`` rows (fewer when a query has
+   many ranges: ROWS_PER_QUERY in all), those nearest the range's centre
+   (half from each side). Grouped by case, the pre-score sums
    over the ranges a case matches the range's weight × its closeness (1 at
    the centre, ½ at the edge); a fundamental weighs 0.7 × the number of
    query frequencies on its orders, as sharing it earns the family credit for
@@ -113,8 +114,10 @@ Role = SignatureRow.Role
 
 # How many candidates (by pre-score) are scored exactly.
 CANDIDATES = 200
-# Index rows read per query range at most, nearest its centre (half a side).
+# Index rows read per query range at most, nearest its centre (half a side), and
+# per query: a query of many ranges reads fewer rows from each.
 ROWS_PER_RANGE = 400
+ROWS_PER_QUERY = 8000
 # Harmonic orders the score considers (analysis.signature's default).
 MAX_ORDER = 50
 # Family credit per query frequency on a shared fundamental (analysis.signature).
@@ -669,7 +672,12 @@ _INDEX_ORDER = ("p.frequency_hz", "p.team_id", "p.outcome", "p.case_id")
 
 
 def _candidate_cases(
-    ranges: np.ndarray, where: str, where_params: list, limit: int, rows_per_range: int
+    ranges: np.ndarray,
+    where: str,
+    where_params: list,
+    limit: int,
+    rows_per_range: int,
+    rows_per_query: int = ROWS_PER_QUERY,
 ) -> list[int]:
     """The best ``limit`` cases by pre-score (module docstring); ties go to the newer case.
 
@@ -683,7 +691,7 @@ def _candidate_cases(
     """
     if ranges.shape[0] == 0:
         return []
-    side = max(1, int(rows_per_range) // 2)
+    side = max(1, min(int(rows_per_range), int(rows_per_query) // ranges.shape[0]) // 2)
     up = ", ".join(_INDEX_ORDER)
     down = ", ".join(f"{c} DESC" for c in _INDEX_ORDER)
     table = _table(SignatureRow)
@@ -768,13 +776,16 @@ def _rank(
     filters: Filters,
     candidates: int,
     rows_per_range: int,
+    rows_per_query: int = ROWS_PER_QUERY,
 ) -> _Scored:
     mine, sharing = teams
     if not mine:
         return _Scored(ranked=[])
     ranges = query_ranges(query.signature, query.tolerance)
     where, where_params = _filter_sql(mine, sharing, filters, query.case_id)
-    case_ids = _candidate_cases(ranges, where, where_params, candidates, rows_per_range)
+    case_ids = _candidate_cases(
+        ranges, where, where_params, candidates, rows_per_range, rows_per_query
+    )
     if not case_ids:
         return _Scored(ranked=[])
     item_ids, item_cases, signatures = _candidate_signatures(case_ids, filters.emission_kind)
@@ -810,6 +821,7 @@ def rank(
     filters: Filters = Filters(),
     candidates: int = CANDIDATES,
     rows_per_range: int = ROWS_PER_RANGE,
+    rows_per_query: int = ROWS_PER_QUERY,
 ) -> list[Ranked]:
     """Every scored candidate case with a score above 0, best first (ties: newer case first).
 
@@ -822,6 +834,7 @@ def rank(
         filters=filters,
         candidates=candidates,
         rows_per_range=rows_per_range,
+        rows_per_query=rows_per_query,
     )
     return scored.ranked
 
@@ -872,7 +885,9 @@ class SearchResult:
     query: Query
     filters: Filters
     hits: tuple[Hit, ...]
-    matched: int  # cases that scored above 0 and passed the checks
+    # Cases that scored above 0, less those the check against the cases dropped (it looks
+    # only as far down the ranking as the page needs).
+    matched: int
     candidates: int  # cases scored
 
 
@@ -893,22 +908,18 @@ _ITEM_FIELDS = (
 )
 
 
-def _passes(row: tuple, mine: set[int], sharing: set[int], filters: Filters, query: Query) -> bool:
-    """The case's own row (id, team, closure, product[, opened at]) agrees with the index:
-    visible to the user and inside the filters. The opened-at column is there only when a
-    date filter is set."""
-    case_id, team_id, closure, product_id, *opened_at = row
-    if case_id == query.case_id:
+def _passes(case: Case, mine: set[int], sharing: set[int], filters: Filters, query: Query) -> bool:
+    """The case itself agrees with its copy in the index: visible to the user and inside the filters."""
+    team_id = case.product.team_id
+    if case.pk == query.case_id:
         return False
-    if team_id not in mine and not (team_id in sharing and closure):
+    if team_id not in mine and not (team_id in sharing and case.is_closed):
         return False
-    if filters.fixed_only and closure != Case.Closure.FIXED:
+    if filters.fixed_only and case.closure != Case.Closure.FIXED:
         return False
-    if filters.product_id is not None and product_id != filters.product_id:
+    if filters.product_id is not None and case.product_id != filters.product_id:
         return False
-    if not opened_at:
-        return True
-    opened = timezone.localtime(opened_at[0]).date()
+    opened = _opened_on(case)
     if filters.opened_from is not None and opened < filters.opened_from:
         return False
     return not (filters.opened_to is not None and opened > filters.opened_to)
@@ -917,6 +928,8 @@ def _passes(row: tuple, mine: set[int], sharing: set[int], filters: Filters, que
 def fixes_of(cases: Sequence[Case]) -> dict[int, list[Fix]]:
     """Verified countermeasures of the cases with their improvement (module docstring), in two queries."""
     fixed_by = {case.pk: case.fixed_by_id for case in cases}
+    if not cases:
+        return {}
     cms = list(
         Countermeasure.objects.filter(
             case_id__in=list(fixed_by), status=Countermeasure.Status.VERIFIED
@@ -924,6 +937,8 @@ def fixes_of(cases: Sequence[Case]) -> dict[int, list[Fix]]:
         .select_related("revision__product")
         .order_by("proposed_at", "id")
     )
+    if not cms:
+        return {}
     results = (
         VerificationResult.objects.filter(
             verification__countermeasure__in=[cm.pk for cm in cms], level_after__isnull=False
@@ -975,6 +990,7 @@ def search(
     limit: int = 10,
     candidates: int = CANDIDATES,
     rows_per_range: int = ROWS_PER_RANGE,
+    rows_per_query: int = ROWS_PER_QUERY,
 ) -> SearchResult:
     """The best ``limit`` (≤ 50) past cases for the query that the user may see, explained.
 
@@ -990,27 +1006,27 @@ def search(
         filters=filters,
         candidates=candidates,
         rows_per_range=rows_per_range,
+        rows_per_query=rows_per_query,
     )
-    # Check every ranked case against its own row (a few columns: there may be 200),
-    # then load in full only the ones shown.
-    columns = ["pk", "product__team_id", "closure", "product_id"]
-    if filters.opened_from is not None or filters.opened_to is not None:
-        columns.append("opened_at")
-    own_rows = {
-        row[0]: row
-        for row in Case.objects.filter(pk__in=[r.case_id for r in scored.ranked]).values_list(
-            *columns
-        )
-    }
+    # Check the ranked cases against themselves in order, a page and a half at a time
+    # (one query, unless the index is out of step for several of them), until a page is full.
     mine_set, sharing_set = set(mine), set(sharing)
-    kept = [
-        r
-        for r in scored.ranked
-        if r.case_id in own_rows
-        and _passes(own_rows[r.case_id], mine_set, sharing_set, filters, query)
-    ]
-    shown = kept[:limit]
-    cases = Case.objects.select_related("product__team").in_bulk([r.case_id for r in shown])
+    chunk = limit + limit // 2 + 2
+    shown: list[Ranked] = []
+    cases: dict[int, Case] = {}
+    dropped = 0
+    for start in range(0, len(scored.ranked), chunk):
+        batch = scored.ranked[start : start + chunk]
+        loaded = Case.objects.select_related("product__team").in_bulk([r.case_id for r in batch])
+        for r in batch:
+            case = loaded.get(r.case_id)
+            if case is None or not _passes(case, mine_set, sharing_set, filters, query):
+                dropped += 1
+            elif len(shown) < limit:
+                shown.append(r)
+                cases[r.case_id] = case
+        if len(shown) == limit:
+            break
     # The matched scan or capture: its name and revision, none of its stored results.
     items = (
         SignatureItem.objects.select_related(
@@ -1043,6 +1059,6 @@ def search(
         query=query,
         filters=filters,
         hits=tuple(hits),
-        matched=len(kept),
+        matched=len(scored.ranked) - dropped,
         candidates=scored.candidates,
     )

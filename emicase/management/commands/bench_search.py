@@ -378,7 +378,9 @@ def recall(user, queries, n_cases: int) -> dict:
         kwargs = {"user": user, "query": query, "filters": search_svc.Filters(**filters)}
         exact = [
             r.score
-            for r in search_svc.rank(**kwargs, candidates=n_cases, rows_per_range=50 * n_cases)
+            for r in search_svc.rank(
+                **kwargs, candidates=n_cases, rows_per_range=50 * n_cases, rows_per_query=10**12
+            )
         ]
         got = [r.score for r in search_svc.rank(**kwargs)]
         if not exact:
