@@ -228,7 +228,24 @@ def worker(transactional_db, _suite_worker):
     w = _suite_worker["worker"]
     if w is None or w.process.poll() is not None:
         w = _suite_worker["worker"] = Worker(_suite_worker["log"]).start()
-    return w
+    yield w
+    # Let the worker finish what the test queued before the database is
+    # flushed: a TRUNCATE racing the worker's store transaction deadlocks on
+    # PostgreSQL.
+    if w.process.poll() is None:
+        _wait_idle()
+
+
+def _wait_idle(timeout: float = 60.0) -> None:
+    from emicase.models import AnalysisStatus, Capture, Scan
+
+    busy = (AnalysisStatus.QUEUED, AnalysisStatus.RUNNING)
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        if not (Scan.objects.filter(status__in=busy).exists() or Capture.objects.filter(status__in=busy).exists()):
+            time.sleep(0.3)  # a re-read queued by the last store may still be running
+            return
+        time.sleep(0.1)
 
 
 def wait_until(predicate, timeout: float = 60.0, interval: float = 0.2, what: str = "condition"):

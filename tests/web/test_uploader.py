@@ -110,7 +110,9 @@ class Log:
 
 
 @pytest.fixture
-def token(engineer) -> str:
+def token(engineer, worker) -> str:
+    # The suite's worker analyses what these tests upload; asking for it here
+    # makes each test wait for those analyses before the database is flushed.
     return Token.objects.create(user=engineer).key
 
 
