@@ -9,7 +9,9 @@ hunt capture of a case, and at closure its failing frequencies, become a
 family's fundamental. The rows carry copies of what the filters need (team,
 product, outcome, opened on, emission kind), so the candidate query reads
 one table. Writes happen in the transaction that stores the analysis or
-closes the case.
+closes the case. An open case is found through its analysed scans and
+captures; its failing frequencies join the index when it closes (until then
+they change with every confirmation and edit).
 
 Search, in two steps:
 
@@ -19,9 +21,9 @@ Search, in two steps:
    fundamentals it can share), each a B-tree range scan of the frequency
    index that reads at most ``rows_per_range`` rows (fewer when a query has
    many ranges: ROWS_PER_QUERY in all), those nearest the range's centre
-   (half from each side). Grouped by case, the pre-score sums
-   over the ranges a case matches the range's weight × its closeness (1 at
-   the centre, ½ at the edge); a fundamental weighs 0.7 × the number of
+   (half from each side). Grouped by case, the pre-score sums over the
+   ranges a case matches the range's weight × its closeness (1 at the
+   centre, ½ at the edge); a fundamental weighs 0.7 × the number of
    query frequencies on its orders, as sharing it earns the family credit for
    each of them. The best ``candidates`` (200) go on.
 2. Scores: the candidates' rows are loaded, one Signature per item, and
