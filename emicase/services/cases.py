@@ -143,6 +143,10 @@ def case_reopen(*, case: Case, by, reason: str) -> Case:
     event_add(
         case=case, kind=CaseEvent.Kind.STAGE, by=by, text=reason.strip(), data={"from": Stage.CLOSED, "to": Stage.HUNTING}
     )
+    # The search index copies each case's outcome; a reopened case has none again.
+    from emicase.services.search import signature_case_outcome
+
+    signature_case_outcome(case=case)
     return case
 
 
