@@ -9,3 +9,6 @@ class EmicaseConfig(AppConfig):
     def ready(self) -> None:
         # Bind @shared_task to our Celery app in every Django process (web and worker).
         from emicase import celery  # noqa: F401
+        from emicase.services.audit import connect_signals
+
+        connect_signals()

@@ -19,7 +19,16 @@ from django.core.files.storage import default_storage
 from django.utils import timezone
 
 from analysis.limits import get_limit, list_limits
-from emicase.models import Capture, Case, Countermeasure, Domain, EmissionSource, Scan, Verification
+from emicase.models import (
+    Capture,
+    Case,
+    Countermeasure,
+    Domain,
+    EmissionSource,
+    Membership,
+    Scan,
+    Verification,
+)
 from emicase.services.uploads import check_trace_file
 
 TRACE_SUFFIXES = (".csv", ".txt", ".tsv", ".dat", ".asc", ".prn")
@@ -633,3 +642,18 @@ class TeamSettingsForm(forms.Form):
         max_value=20,
         help_text="How far a capture's peak may lie from a failing frequency and still be read there.",
     )
+    share_closed_cases = forms.BooleanField(
+        label="Let other teams of this installation find our closed cases in the signature search",
+        required=False,
+        help_text="They see the product, the frequencies, the outcome and the verified countermeasures, "
+                  "never the files or the case page.",
+    )
+
+
+class MemberAddForm(forms.Form):
+    username = forms.CharField(label="Account name", max_length=150)
+    role = forms.ChoiceField(label="Role", choices=Membership.Role.choices, initial=Membership.Role.ENGINEER)
+
+
+class MemberRoleForm(forms.Form):
+    role = forms.ChoiceField(label="Role", choices=Membership.Role.choices)

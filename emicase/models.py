@@ -663,3 +663,53 @@ class SignatureRow(models.Model):
 
     def __str__(self) -> str:
         return f"{self.get_role_display()} {self.frequency_hz / 1e6:.4f} MHz of case {self.case_id}"
+
+
+# ----------------------------------------------------------------- audit
+
+
+class AuditEvent(models.Model):
+    """Who did what, when: sign-ins, stage changes, waivers, deletions, sharing, membership.
+
+    Rows are appended, never edited, and survive what they describe (a removed
+    member or a deleted source keeps its line: ``actor_name`` and ``text`` are
+    copied in, not joined). Each row belongs to one team, so a team's leads
+    read exactly their team's log; a sign-in is written once per team of the
+    person signing in.
+    """
+
+    class Verb(models.TextChoices):
+        SIGNED_IN = "signed_in", "Signed in"
+        SIGN_IN_FAILED = "sign_in_failed", "Sign-in refused"
+        SIGNED_OUT = "signed_out", "Signed out"
+        STAGE = "stage", "Stage changed"
+        CLOSED = "closed", "Case closed as fixed"
+        WAIVED = "waived", "Case closed as waived"
+        REOPENED = "reopened", "Case reopened"
+        DELETED = "deleted", "Deleted"
+        SHARING = "sharing", "Sharing changed"
+        SETTINGS = "settings", "Team settings changed"
+        MEMBER_ADDED = "member_added", "Member added"
+        MEMBER_ROLE = "member_role", "Member's role changed"
+        MEMBER_REMOVED = "member_removed", "Member removed"
+        FILE_DOWNLOADED = "file_downloaded", "Uploaded file downloaded"
+
+    team = models.ForeignKey(Team, on_delete=models.CASCADE, related_name="audit_events")
+    at = models.DateTimeField(default=timezone.now)
+    actor = models.ForeignKey(
+        settings.AUTH_USER_MODEL, on_delete=models.SET_NULL, null=True, blank=True, related_name="+"
+    )
+    actor_name = models.CharField(max_length=150, blank=True)
+    verb = models.CharField(max_length=20, choices=Verb.choices)
+    object_type = models.CharField(max_length=40, blank=True)
+    object_id = models.PositiveBigIntegerField(null=True, blank=True)
+    text = models.CharField(max_length=300, blank=True)
+    remote_addr = models.GenericIPAddressField(null=True, blank=True)
+    data = models.JSONField(default=dict, blank=True)
+
+    class Meta:
+        ordering = ["-at", "-id"]
+        indexes = [models.Index(fields=["team", "-at"], name="audit_team_recent")]
+
+    def __str__(self) -> str:
+        return f"{self.at:%Y-%m-%d %H:%M} {self.actor_name or '—'} {self.get_verb_display()}"

@@ -85,6 +85,7 @@ INSTALLED_APPS = [
 
 MIDDLEWARE = [
     "django.middleware.security.SecurityMiddleware",
+    "emicase.middleware.RequestSizeLimitMiddleware",
     "whitenoise.middleware.WhiteNoiseMiddleware",
     "django.contrib.sessions.middleware.SessionMiddleware",
     "django.middleware.common.CommonMiddleware",
@@ -187,6 +188,11 @@ LOGOUT_REDIRECT_URL = "login"
 EMICASE_MAX_SPECTRUM_BYTES = envint("EMICASE_MAX_SPECTRUM_BYTES", 50 * 1024 * 1024)
 EMICASE_MAX_TIME_RECORD_BYTES = envint("EMICASE_MAX_TIME_RECORD_BYTES", 200 * 1024 * 1024)
 FILE_UPLOAD_MAX_MEMORY_SIZE = 5 * 1024 * 1024
+# A whole request may carry the largest file plus its form fields; larger ones get a 413
+# before their body is read (emicase.middleware). Non-file fields keep Django's 2.5 MB cap.
+EMICASE_MAX_REQUEST_BYTES = envint(
+    "EMICASE_MAX_REQUEST_BYTES", max(EMICASE_MAX_SPECTRUM_BYTES, EMICASE_MAX_TIME_RECORD_BYTES) + 2**20
+)
 
 # ---------------------------------------------------------------- Celery
 BROKER_DIR = VAR_DIR / "broker"

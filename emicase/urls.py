@@ -2,7 +2,7 @@ from django.contrib import admin
 from django.contrib.auth import views as auth_views
 from django.urls import include, path
 
-from emicase import views
+from emicase import access_views, views
 
 urlpatterns = [
     path("", views.home, name="home"),
@@ -49,4 +49,8 @@ urlpatterns = [
     path("sources/<int:source_id>/edit/", views.source_edit, name="source_edit"),
     path("sources/<int:source_id>/delete/", views.source_delete, name="source_delete"),
     path("teams/<slug:slug>/settings/", views.team_settings, name="team_settings"),
+    path("teams/<slug:slug>/members/", access_views.team_members, name="team_members"),
+    path("teams/<slug:slug>/audit/", access_views.team_audit, name="team_audit"),
+    path("scans/<int:scan_id>/file/", access_views.scan_file, name="scan_file"),
+    path("captures/<int:capture_id>/file/", access_views.capture_file, name="capture_file"),
 ]

@@ -1401,13 +1401,14 @@ def team_settings(request, slug):
         initial={
             "guard_band_db": team.guard_band_db,
             "frequency_tolerance_pct": team.frequency_tolerance_pct,
+            "share_closed_cases": team.share_closed_cases,
         },
     )
     if request.method == "POST":
         require_role(request.user, team.pk, LEAD_ROLES)
         if form.is_valid():
             try:
-                product_svc.team_settings_update(team=team, by=request.user, **form.cleaned_data)
+                product_svc.team_settings_update(team=team, by=request.user, request=request, **form.cleaned_data)
             except ValidationError as exc:
                 forms.apply_service_error(form, exc)
             else:

@@ -196,3 +196,13 @@ class EventFilter(df.FilterSet):
     class Meta:
         model = m.CaseEvent
         fields = ["kind"]
+
+
+class AuditEventFilter(df.FilterSet):
+    team = id_filter("team", "team")
+    verb = df.ChoiceFilter(choices=m.AuditEvent.Verb.choices)
+    at_after, at_before = date_range("at", "Recorded")
+
+    class Meta:
+        model = m.AuditEvent
+        fields = ["team", "verb"]

@@ -837,3 +837,12 @@ class LimitSerializer(serializers.Serializer):
     unit = serializers.CharField()
     distance_m = serializers.FloatField(allow_null=True)
     source = serializers.CharField(help_text="Where the values come from.")
+
+
+class AuditEventSerializer(serializers.ModelSerializer):
+    actor = serializers.CharField(source="actor_name", read_only=True, help_text="The account name at the time.")
+    team = serializers.SlugRelatedField(slug_field="slug", read_only=True)
+
+    class Meta:
+        model = m.AuditEvent
+        fields = ["id", "team", "at", "actor", "verb", "object_type", "object_id", "text", "remote_addr"]

@@ -24,6 +24,7 @@ router.register("failing-frequencies", views.FailingFrequencyViewSet, basename="
 router.register("captures", views.CaptureViewSet, basename="capture")
 router.register("countermeasures", views.CountermeasureViewSet, basename="countermeasure")
 router.register("verifications", views.VerificationViewSet, basename="verification")
+router.register("audit", views.AuditEventViewSet, basename="auditevent")
 
 urlpatterns = [
     path("limits/", views.LimitListView.as_view(), name="limits"),

@@ -25,6 +25,7 @@ from rest_framework.decorators import action
 from rest_framework.exceptions import APIException, ValidationError
 from rest_framework.parsers import MultiPartParser
 from rest_framework.permissions import IsAuthenticated
+from rest_framework.renderers import BaseRenderer
 from rest_framework.response import Response
 from rest_framework.views import APIView
 
@@ -38,6 +39,8 @@ from emicase.services import countermeasures as cm_svc
 from emicase.services import frequencies as ff_svc
 from emicase.services import products as product_svc
 from emicase.services import uploads as upload_svc
+from emicase.services.audit import audit_visible_to
+from emicase.services.files import upload_file_response
 
 # ----------------------------------------------------------------- idempotent uploads
 
@@ -371,6 +374,24 @@ class FailingFrequencyViewSet(mixins.ListModelMixin, mixins.RetrieveModelMixin, 
 # ----------------------------------------------------------------- analysed uploads
 
 
+class PassthroughRenderer(BaseRenderer):
+    """Lets a client that asks for the raw bytes (Accept: application/octet-stream) have them."""
+
+    media_type = "application/octet-stream"
+    format = "bin"
+    charset = None
+    render_style = "binary"
+
+    def render(self, data, accepted_media_type=None, renderer_context=None):
+        return data
+
+
+FILE_DOC = extend_schema(
+    responses={(200, "application/octet-stream"): OpenApiTypes.BINARY},
+    description="The file as uploaded (an attachment named as it was sent); each download is in the team's audit log.",
+)
+
+
 class UploadViewSet(mixins.ListModelMixin, mixins.RetrieveModelMixin, ScopedViewSet):
     """Shared by scans and captures: heavy columns stay out of lists, the envelope has its own endpoint."""
 
@@ -384,6 +405,12 @@ class UploadViewSet(mixins.ListModelMixin, mixins.RetrieveModelMixin, ScopedView
         if self.action == "list":
             queryset = queryset.defer("envelope", "results")
         return queryset
+
+    @FILE_DOC
+    @action(detail=True, methods=["get"], renderer_classes=[PassthroughRenderer])
+    def file(self, request, pk=None):
+        """The uploaded file itself, for members of its team only."""
+        return upload_file_response(self.get_object(), by=request.user, request=request)
 
     def envelope_response(self) -> Response:
         item = self.get_object()
@@ -595,3 +622,18 @@ class VerificationViewSet(mixins.ListModelMixin, mixins.RetrieveModelMixin, Scop
         data = self.validated(s.VerificationByScanSerializer)
         v = cm_svc.verification_by_scan(by=request.user, **data)
         return self.shown(v, code=status.HTTP_201_CREATED)
+
+
+# ----------------------------------------------------------------- audit log
+
+
+class AuditEventViewSet(mixins.ListModelMixin, viewsets.GenericViewSet):
+    """The audit log of the teams you lead (empty for everyone else), newest first."""
+
+    serializer_class = s.AuditEventSerializer
+    permission_classes = [IsAuthenticated]
+    filterset_class = filters.AuditEventFilter
+    ordering_fields = ["at"]
+
+    def get_queryset(self):
+        return audit_visible_to(self.request.user)

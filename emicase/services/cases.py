@@ -8,6 +8,7 @@ from django.utils import timezone
 
 from emicase.models import Case, CaseEvent, Countermeasure, Product
 from emicase.services.access import LEAD_ROLES, require_role
+from emicase.services.audit import Verb, audit_record
 from emicase.services.search import signature_case_closed
 
 Stage = Case.Stage
@@ -28,7 +29,22 @@ def event_add(*, case: Case, kind: str, by=None, text: str = "", data: dict | No
     now = timezone.now()
     event = CaseEvent.objects.create(case=case, kind=kind, actor=by, at=now, text=text, data=data or {})
     Case.objects.filter(pk=case.pk).update(updated_at=now)
+    if kind in (CaseEvent.Kind.STAGE, CaseEvent.Kind.CLOSED):
+        _audit_stage(case, kind, by, text, data or {})
     return event
+
+
+def _audit_stage(case: Case, kind: str, by, text: str, data: dict) -> None:
+    """Stage changes, closures, waivers and reopenings go to the team's audit log too."""
+    if kind == CaseEvent.Kind.CLOSED:
+        verb = Verb.WAIVED if data.get("closure") == Case.Closure.WAIVED else Verb.CLOSED
+    elif data.get("from") == Stage.CLOSED:
+        verb = Verb.REOPENED
+    else:
+        verb = Verb.STAGE
+    detail = f"{case.title}: {data.get('from', '')} → {data.get('to', Stage.CLOSED)}"
+    audit_record(team=case.product.team_id, verb=verb, by=by, obj=case,
+                 text=f"{detail} ({text})" if text else detail, data=data)
 
 
 @transaction.atomic

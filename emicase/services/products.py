@@ -8,6 +8,7 @@ from django.db import transaction
 from emicase.models import Capture, Case, EmissionSource, Product, Revision, Scan, Team
 from emicase.services.access import LEAD_ROLES, require_role
 from emicase.services.analysis import reread_enqueue
+from emicase.services.audit import Verb, audit_record
 
 
 @transaction.atomic
@@ -65,23 +66,44 @@ def source_save(*, revision: Revision, by, name: str, kind: str, nominal_frequen
 def source_delete(*, source: EmissionSource, by) -> None:
     revision = source.revision
     require_role(by, revision.product.team_id)
+    audit_record(
+        team=revision.product.team_id, verb=Verb.DELETED, by=by, obj=source,
+        text=f"Known source {source.name} ({source.nominal_frequency_hz / 1e6:g} MHz) of "
+             f"{revision.product.name} rev {revision.hardware_label}",
+    )
     source.delete()
     reread_enqueue(_cases_using(revision))
 
 
 @transaction.atomic
 def team_settings_update(*, team: Team, by, guard_band_db: float | None = None,
-                         frequency_tolerance_pct: float | None = None) -> Team:
-    """A lead changes the team's guard band or frequency tolerance; open cases are re-read."""
+                         frequency_tolerance_pct: float | None = None,
+                         share_closed_cases: bool | None = None, request=None) -> Team:
+    """A lead changes the team's guard band, frequency tolerance or sharing; open cases are re-read."""
     require_role(by, team.pk, LEAD_ROLES)
     team = Team.objects.select_for_update().get(pk=team.pk)
-    old_tol = team.frequency_tolerance_pct
+    old_tol, old_guard, old_share = team.frequency_tolerance_pct, team.guard_band_db, team.share_closed_cases
     if guard_band_db is not None:
         team.guard_band_db = guard_band_db
     if frequency_tolerance_pct is not None:
         team.frequency_tolerance_pct = frequency_tolerance_pct
+    if share_closed_cases is not None:
+        team.share_closed_cases = share_closed_cases
     team.full_clean()
     team.save()
+    if team.share_closed_cases != old_share:
+        audit_record(
+            team=team, verb=Verb.SHARING, by=by, obj=team, request=request,
+            text=("Closed cases shared with every team of this installation" if team.share_closed_cases
+                  else "Closed cases no longer shared"),
+            data={"share_closed_cases": team.share_closed_cases},
+        )
+    if (team.guard_band_db, team.frequency_tolerance_pct) != (old_guard, old_tol):
+        audit_record(
+            team=team, verb=Verb.SETTINGS, by=by, obj=team, request=request,
+            text=f"Guard band {old_guard:g} → {team.guard_band_db:g} dB, "
+                 f"tolerance {old_tol:g} → {team.frequency_tolerance_pct:g} %",
+        )
     if team.frequency_tolerance_pct != old_tol:
         reread_enqueue(Case.objects.filter(product__team=team).exclude(stage=Case.Stage.CLOSED)
                        .values_list("pk", flat=True))
