@@ -256,3 +256,24 @@ def wait_until(predicate, timeout: float = 60.0, interval: float = 0.2, what: st
             return value
         time.sleep(interval)
     raise AssertionError(f"timed out after {timeout:.0f} s waiting for {what}")
+
+
+# ----------------------------------------------------------------- the run's own folder
+
+
+def pytest_sessionstart(session):
+    """Prune the folders of earlier runs that are gone (see tests/django_settings.py)."""
+    own = os.environ.get("EMICASE_TEST_RUN")
+    for folder in (ROOT / "var" / "test").glob("run-*"):
+        run = folder.name.removeprefix("run-")
+        if run != own and time.time() - folder.stat().st_mtime > 6 * 3600:
+            shutil.rmtree(folder, ignore_errors=True)
+
+
+def pytest_sessionfinish(session, exitstatus):
+    """A run that passed leaves nothing behind; a failed one keeps its worker logs and files."""
+    from django.conf import settings
+
+    var = Path(settings.VAR_DIR)
+    if exitstatus == 0 and var.parent == ROOT / "var" / "test" and var.name.startswith("run-"):
+        shutil.rmtree(var, ignore_errors=True)
