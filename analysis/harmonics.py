@@ -53,7 +53,7 @@ from collections.abc import Sequence
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy import stats
+from scipy import special
 
 from analysis.errors import TraceError
 from analysis.types import Family, Peak
@@ -103,49 +103,61 @@ def find_families(
     res = resolution[by_frequency]
     known_width = np.where(np.isfinite(width) & (width > 0), width, 0.0)
     tol = np.maximum(np.maximum(2.0 * res, rel_tol * f), 0.5 * known_width)
+    # The least-squares weight of each peak (see _refine), the same in every round.
+    weight = 1.0 / np.maximum(tol, 1e-9 * f) ** 2
 
     candidates = _candidates(f, prominence_db[by_frequency])
     claimed = np.zeros(f.size, dtype=bool)
     families: list[Family] = []
-    while len(families) < max_families and (~claimed).sum() >= min_peaks:
+    # The search works on the matched cells of the candidates × peaks grid
+    # (flat indices, row-major): a few per candidate. Each step is a handful
+    # of whole-array operations; with tens of peaks and hundreds of
+    # candidates their count, not their size, is what the search costs.
+    while len(families) < max_families and f.size - np.count_nonzero(claimed) >= min_peaks:
         active = ~claimed
-        orders, ok = _match(candidates, f, tol, active, max_order)
+        cells, cell_order = _match(candidates, f, tol, active, max_order)
         # A candidate matching no unclaimed peak keeps its f0 through the
         # refinement (nothing to fit), so it matches nothing and cannot make a
         # family now, nor later, when fewer peaks are unclaimed: drop it.
-        matched = ok.any(axis=1)
-        candidates, orders, ok = candidates[matched], orders[matched], ok[matched]
+        cols = f.size
+        cell_row = cells // cols
+        matched = np.zeros(candidates.size, dtype=bool)
+        matched[cell_row] = True
+        if not matched.all():
+            rank = np.cumsum(matched) - 1
+            cells = rank[cell_row] * cols + (cells - cell_row * cols)
+            candidates = candidates[matched]
         f0 = candidates
         for refinement in range(_REFINE_PASSES):
             if refinement > 0:
-                orders, ok = _match(f0, f, tol, active, max_order)
-            f0 = _refine(f0, f, tol, orders, _best_comb(orders, ok)[0])
-        orders, ok = _match(f0, f, tol, active, max_order)
-        keep, score, missing, highest, odd = _best_comb(orders, ok)
-        count = keep.sum(axis=1)
+                cells, cell_order = _match(f0, f, tol, active, max_order)
+            kept = _best_comb(cells, cell_order, f0.size, cols)[0]
+            f0 = _refine(f0, f, weight, cells[kept], cell_order[kept])
+        cells, cell_order = _match(f0, f, tol, active, max_order)
+        kept, score, missing, highest, odd, count = _best_comb(cells, cell_order, f0.size, cols)
         expected = _chance_matches(f0, f, tol, active, highest, odd)
-        p_chance = stats.poisson.sf(count - 1, expected)
+        p_chance = _poisson_sf(count - 1, expected)
         valid = (count >= min_peaks) & (missing <= count) & (p_chance <= false_alarm)
         if not valid.any():
             break
         idx = np.flatnonzero(valid)
         # Best score, ties to the higher fundamental (the simpler comb).
         best = idx[np.lexsort((-f0[idx], -score[idx]))[0]]
-        row = keep[best]
-        n = orders[best, row]
-        fundamental = float(
-            _refine(f0[best : best + 1], f, tol, orders[best : best + 1], keep[best : best + 1])[0]
-        )
+        kept_cells, kept_order = cells[kept], cell_order[kept]
+        mine = kept_cells // cols == best
+        columns = kept_cells[mine] - best * cols  # ascending: the row's peaks by frequency
+        n = kept_order[mine]
+        fundamental = float(_refine(f0[best : best + 1], f, weight, columns, n)[0])
         families.append(
             Family(
                 fundamental_hz=fundamental,
                 orders=tuple(int(v) for v in n),
                 odd_only=bool(n.size >= 3 and np.all(n % 2 == 1)),
-                spread_spectrum=_is_spread(n, width[row], res[row], fundamental),
-                peak_frequencies_hz=tuple(float(v) for v in f[row]),
+                spread_spectrum=_is_spread(n, width[columns], res[columns], fundamental),
+                peak_frequencies_hz=tuple(float(v) for v in f[columns]),
             )
         )
-        claimed |= row
+        claimed[columns] = True
     return tuple(families)
 
 
@@ -199,55 +211,73 @@ def _candidates(f: np.ndarray, prominence_db: np.ndarray) -> np.ndarray:
 def _match(
     f0: np.ndarray, f: np.ndarray, tol: np.ndarray, active: np.ndarray, max_order: int
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Orders (C, N) and the match mask, keeping one peak (the closest) per order."""
-    orders = np.rint(f[None, :] / f0[:, None]).astype(np.int64)
-    deviation = np.abs(f[None, :] - orders * f0[:, None])
-    ok = active[None, :] & (orders >= 1) & (orders <= max_order) & (deviation <= tol[None, :])
+    """The matched cells of the (candidate, peak) grid, one peak per order (the closest).
 
+    Returns their flat indices (row-major, ascending) and their orders: peak f
+    matches candidate f0 at order n = round(f/f0) when 1 ≤ n ≤ max_order and
+    |f − n·f0| ≤ its tolerance; of peaks sharing an order the closest is kept
+    (the first on exact ties).
+    """
+    orders = np.divide(f[None, :], f0[:, None])
+    np.rint(orders, out=orders)  # whole numbers, so the tests below are exact
+    deviation = orders * f0[:, None]
+    np.subtract(f[None, :], deviation, out=deviation)
+    np.abs(deviation, out=deviation)
+    ok = deviation <= tol
+    ok &= orders >= 1
+    ok &= orders <= max_order
+    ok &= active
+    cells = np.flatnonzero(ok)
+    cell_order = orders.ravel()[cells].astype(np.int64)
+    if cells.size < 2:
+        return cells, cell_order
     # Peaks sharing an order sit next to each other in a row (f is sorted).
     # Of each run of adjacent matched peaks with one order keep the closest
-    # (the first on exact ties). Only the matched cells are looked at: they
-    # are few, and row-major order keeps each row's runs together.
-    rows, cols = ok.shape
-    cells = np.flatnonzero(ok)
-    first = np.zeros(rows * cols, dtype=bool)
-    if cells.size == 0:
-        return orders, first.reshape(rows, cols)
-    cell_order = orders.ravel()[cells]
-    run_start = np.ones(cells.size, dtype=bool)
-    run_start[1:] = (
-        (cells[1:] != cells[:-1] + 1)
-        | (cells[1:] % cols == 0)
-        | (cell_order[1:] != cell_order[:-1])
-    )
+    # (the first on exact ties). Row-major order keeps each row's runs together.
+    cols = f.size
+    later = cells[1:]
+    run_start = np.empty(cells.size, dtype=bool)
+    run_start[0] = True
+    np.not_equal(later - cells[:-1], 1, out=run_start[1:])
+    run_start[1:] |= later % cols == 0
+    run_start[1:] |= cell_order[1:] != cell_order[:-1]
+    if run_start.all():  # the usual case: no two peaks share an order
+        return cells, cell_order
     run_id = np.cumsum(run_start) - 1
     dev = deviation.ravel()[cells]
     closest = np.flatnonzero(dev == np.minimum.reduceat(dev, np.flatnonzero(run_start))[run_id])
     closest_run = run_id[closest]
-    first[cells[closest[np.r_[True, closest_run[1:] != closest_run[:-1]]]]] = True
-    return orders, first.reshape(rows, cols)
+    first = np.empty(closest.size, dtype=bool)
+    first[0] = True
+    np.not_equal(closest_run[1:], closest_run[:-1], out=first[1:])
+    chosen = closest[first]
+    return cells[chosen], cell_order[chosen]
 
 
 def _refine(
-    f0: np.ndarray, f: np.ndarray, tol: np.ndarray, orders: np.ndarray, ok: np.ndarray
+    f0: np.ndarray, f: np.ndarray, weight: np.ndarray, cells: np.ndarray, orders: np.ndarray
 ) -> np.ndarray:
-    """Weighted least-squares fundamental per candidate; unmatched rows unchanged.
+    """Weighted least-squares fundamental per candidate; rows without cells unchanged.
 
-    Minimises Σ ((f − n·f0) / tol)², i.e. f0 = Σ w·n·f / Σ w·n² with w = 1/tol².
-    As tol grows with f, every order's relative deviation counts about equally;
-    the plain Σ n·f / Σ n² would let one stray high-order match drag f0.
+    ``cells`` are flat indices into the (len(f0), len(f)) grid, ``orders``
+    their orders. Minimises Σ ((f − n·f0) / tol)², i.e. f0 = Σ w·n·f / Σ w·n²
+    with w = 1/tol² (``weight``). As tol grows with f, every order's relative
+    deviation counts about equally; the plain Σ n·f / Σ n² would let one stray
+    high-order match drag f0.
     """
-    weight = 1.0 / np.maximum(tol, 1e-9 * f) ** 2
-    n = np.where(ok, orders, 0).astype(float)
-    denominator = np.sum(weight * n * n, axis=1)
-    numerator = np.sum(weight * n * f[None, :], axis=1)
+    n = np.zeros(f0.size * f.size)
+    n[cells] = orders
+    n = n.reshape(f0.size, f.size)
+    weighted = weight * n
+    denominator = np.sum(weighted * n, axis=1)
+    numerator = np.sum(weighted * f, axis=1)
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.where(denominator > 0, numerator / denominator, f0)
 
 
 def _best_comb(
-    orders: np.ndarray, ok: np.ndarray
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    cells: np.ndarray, cell_order: np.ndarray, rows: int, cols: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """The simplest comb inside each candidate's matches.
 
     Two readings are scored: all matched orders, or the odd ones only (a stray
@@ -256,60 +286,80 @@ def _best_comb(
     score = matched − 0.5 × missing, where missing counts the orders (odd
     orders for an odd-only comb) between the lowest and the cut that have no
     peak: a chance match far above the family would otherwise add a long run
-    of holes. Returns the kept mask and, per row, the score, the missing count,
-    the highest kept order and whether the comb is odd-only.
+    of holes. ``cells`` (ascending flat indices into the rows × cols grid)
+    and ``cell_order`` are _match's. Returns which cells are kept and, per
+    row, the score, the missing count, the highest kept order, whether the
+    comb is odd-only and how many cells it keeps.
     """
-    rows, cols = ok.shape
-    # Worked on the matched cells only, in row-major order (by candidate,
-    # then by frequency): a row's matches are a contiguous segment, so counts
-    # along a row are ranks within its segment and per-row maxima a reduceat.
-    # Both readings go through at once: the odd-only reading's cells follow
-    # the others, as rows numbered from `rows` on.
-    cells = np.flatnonzero(ok)
+    # A row's matches are a contiguous segment of the cells, so counts along
+    # a row are ranks within its segment and per-row maxima a reduceat. Both
+    # readings go through at once: the odd-only reading's cells follow the
+    # others, as rows numbered from `rows` on.
     cell_row = cells // cols
-    cell_order = orders.ravel()[cells]
     cell_odd = cell_order % 2 == 1
     odd_cells = np.flatnonzero(cell_odd)
-    chosen = np.concatenate((np.arange(cells.size), odd_cells))
-    row = np.concatenate((cell_row, cell_row[odd_cells] + rows))
+    total = cells.size + odd_cells.size
     best_score = np.full(rows, -np.inf)
     best_cut = np.full(rows, -1)
     best_odd = np.zeros(rows, dtype=bool)
-    if chosen.size:
+    if total:
+        chosen = np.concatenate((np.arange(cells.size), odd_cells))
+        row = np.concatenate((cell_row, cell_row[odd_cells] + rows))
         order = cell_order[chosen]
-        new_row = np.r_[True, row[1:] != row[:-1]]
+        new_row = np.empty(total, dtype=bool)
+        new_row[0] = True
+        np.not_equal(row[1:], row[:-1], out=new_row[1:])
         segment = np.flatnonzero(new_row)
         segment_id = np.cumsum(new_row) - 1
-        count = np.arange(1, chosen.size + 1) - segment[segment_id]
+        count = np.arange(1, total + 1) - segment[segment_id]
         span = order - order[segment][segment_id]
         possible = np.where(row >= rows, span // 2 + 1, span + 1)
         score = count - _GAP_PENALTY * (possible - count)
         row_best = np.maximum.reduceat(score, segment)
         # Ties go to the longer comb: more peaks explained for the same score.
         at_best = np.flatnonzero(score == row_best[segment_id])
-        last = at_best[np.r_[segment_id[at_best[1:]] != segment_id[at_best[:-1]], True]]
-        cut = cells[chosen[last]] % cols
+        best_id = segment_id[at_best]
+        last_of_row = np.empty(at_best.size, dtype=bool)
+        last_of_row[-1] = True
+        np.not_equal(best_id[1:], best_id[:-1], out=last_of_row[:-1])
+        cut = cells[chosen[at_best[last_of_row]]] % cols
         segment_row = row[segment]
         # The all-orders reading first; the odd-only one where strictly better.
         plain = segment_row < rows
         best_score[segment_row[plain]] = row_best[plain]
         best_cut[segment_row[plain]] = cut[plain]
-        odd_row = segment_row[~plain] - rows
-        better = row_best[~plain] > best_score[odd_row]
-        best_score[odd_row[better]] = row_best[~plain][better]
-        best_cut[odd_row[better]] = cut[~plain][better]
+        odd = ~plain
+        odd_row = segment_row[odd] - rows
+        odd_best = row_best[odd]
+        better = odd_best > best_score[odd_row]
+        best_score[odd_row[better]] = odd_best[better]
+        best_cut[odd_row[better]] = cut[odd][better]
         best_odd[odd_row[better]] = True
     has = best_cut >= 0
-    kept = (cells % cols <= best_cut[cell_row]) & (~best_odd[cell_row] | cell_odd)
-    keep = np.zeros(rows * cols, dtype=bool)
-    keep[cells[kept]] = True
-    keep = keep.reshape(rows, cols)
-    count = np.bincount(cell_row[kept], minlength=rows)
-    highest = np.zeros(rows, dtype=orders.dtype)
-    np.maximum.at(highest, cell_row[kept], cell_order[kept])
+    kept = cells % cols <= best_cut[cell_row]
+    kept &= ~best_odd[cell_row] | cell_odd
+    kept_row = cell_row[kept]
+    count = np.bincount(kept_row, minlength=rows)
+    # Orders do not decrease along a row (f is sorted): a row's highest kept
+    # order is that of its last kept cell.
+    highest = np.zeros(rows, dtype=cell_order.dtype)
+    if kept_row.size:
+        last = np.empty(kept_row.size, dtype=bool)
+        last[-1] = True
+        np.not_equal(kept_row[1:], kept_row[:-1], out=last[:-1])
+        highest[kept_row[last]] = cell_order[kept][last]
     score = np.where(has, best_score, -np.inf)
     missing = np.where(has, count - best_score, 0.0) / _GAP_PENALTY
-    return keep, score, missing, highest, best_odd
+    return kept, score, missing, highest, best_odd, count
+
+
+def _poisson_sf(k: np.ndarray, mu: np.ndarray) -> np.ndarray:
+    """scipy.stats.poisson.sf(k, mu) for whole numbers k, without its per-call
+    argument handling: P(X > k), 1 for k < 0, NaN for a negative or NaN mean."""
+    out = np.clip(special.pdtrc(np.maximum(k, 0).astype(float), mu), 0.0, 1.0)
+    out[k < 0] = 1.0
+    out[~(mu >= 0)] = np.nan
+    return out
 
 
 def _chance_matches(
