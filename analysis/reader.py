@@ -14,7 +14,7 @@ A trace file is, top to bottom:
 * the data: two or more numeric columns separated by commas, semicolons, tabs
   or runs of blanks (detected from the first data line). When the separator
   is not a comma, a decimal comma is accepted (``12,5;34,1``). Blank lines and
-  ``#`` comments may appear among the data.
+  ``#`` comments (at a line's start or after a blank) may appear among the data.
 
 The data start at the first line holding two or more numbers and nothing
 else; the header is the nearest line above naming a column (it holds no
@@ -44,8 +44,12 @@ value printed as 1.234e-06 is only known to ±5e-10).
 
 Guards: ``max_bytes`` (default 1 GiB) refuses bigger inputs before reading
 them; ``max_line_bytes`` (default 1 MiB) refuses longer lines, e.g. a binary
-file without line breaks. Binary content (NUL or control bytes, zip or gzip
-signatures, UTF-16) is refused as "not a text trace".
+file without line breaks — a line too long in the first 2 × max_line_bytes is
+refused before the rest of the file is read. Binary content (NUL or control
+bytes, zip, gzip, image, PDF or old Office signatures, UTF-16) is refused as
+"not a text trace". A header naming fewer or more columns than the data
+hold is refused (a decimal comma or thousands separator in comma-separated
+data, most often): columns are never guessed.
 
 Speed: only the first lines are looked at in Python; the data are tokenised
 and converted with numpy in blocks of 128 KiB, small enough for the
@@ -157,7 +161,32 @@ def _too_big(size: int, max_bytes: int, name: str) -> TraceError:
     )
 
 
-def _load(source: object, name: str, max_bytes: int) -> tuple[np.ndarray, int]:
+def _early_window(max_line_bytes: int) -> int:
+    # Twice the limit: a too-long line starting in the first half shows in full.
+    return 2 * (max_line_bytes + 1)
+
+
+def _early_line_guard(head: np.ndarray, max_line_bytes: int, name: str) -> None:
+    """Refuse a line longer than the limit already visible in the file's first bytes.
+
+    Called before the rest of the file is read, so a file of one endless line
+    (1 GB of digits, a binary blob) is refused without loading it. Text that
+    is binary anyway is left to the head scan, which says what it is.
+    """
+    if head.size <= max_line_bytes:
+        return
+    breaks = np.flatnonzero(head == _NL)
+    if breaks.size == 0:
+        breaks = np.flatnonzero(head == _CR)  # classic Mac line ends
+    lengths = np.diff(np.concatenate(([-1], breaks, [head.size]))) - 1
+    long = np.flatnonzero(lengths > max_line_bytes)
+    if long.size and _binary_reason(head.tobytes()) is None:
+        raise TraceError(_too_long(max_line_bytes), name=name, line=int(long[0]) + 1)
+
+
+def _load(
+    source: object, name: str, max_bytes: int, max_line_bytes: int = DEFAULT_MAX_LINE_BYTES
+) -> tuple[np.ndarray, int]:
     """Copy the input into a padded uint8 buffer; returns (buffer, size in bytes)."""
     if isinstance(source, bytes | bytearray | memoryview):
         try:
@@ -179,11 +208,15 @@ def _load(source: object, name: str, max_bytes: int) -> tuple[np.ndarray, int]:
                 buf = _new_buffer(size)
                 target = memoryview(buf)[_PAD_FRONT : _PAD_FRONT + size]
                 got = 0
+                early = min(size, _early_window(max_line_bytes)) if size > max_line_bytes else 0
                 while got < size:
-                    n = fh.readinto(target[got:])
+                    n = fh.readinto(target[got : early or size])
                     if not n:
                         break
                     got += n
+                    if early and got >= early:
+                        _early_line_guard(buf[_PAD_FRONT : _PAD_FRONT + got], max_line_bytes, name)
+                        early = 0
                 if got < size:  # the file shrank while we read it
                     buf[_PAD_FRONT + got :] = _NL
                     size = got
@@ -197,17 +230,45 @@ def _load(source: object, name: str, max_bytes: int) -> tuple[np.ndarray, int]:
             f"cannot read a trace from a {type(source).__name__}; pass a path, bytes or a binary file",
             name=name,
         )
-    try:
-        data = read(max_bytes + 1)
-    except (OSError, ValueError) as exc:
-        raise TraceError(f"cannot read the file ({exc})", name=name) from exc
-    if isinstance(data, str):  # a text stream was handed over; its text is what counts
-        data = data.encode("utf-8")
-    if not isinstance(data, bytes | bytearray | memoryview):
-        raise TraceError("cannot read the file (read() returned no bytes)", name=name)
-    if len(data) > max_bytes:
-        raise _too_big(len(data), max_bytes, name)
-    return _load(bytes(data), name, max_bytes)
+
+    def pull(n: int) -> bytes:
+        try:
+            data = read(n)
+        except (OSError, ValueError) as exc:
+            raise TraceError(f"cannot read the file ({exc})", name=name) from exc
+        if data is None:  # a non-blocking stream with nothing ready: treat as the end
+            return b""
+        if isinstance(data, str):  # a text stream was handed over; its text is what counts
+            data = data.encode("utf-8")
+        if not isinstance(data, bytes | bytearray | memoryview):
+            raise TraceError("cannot read the file (read() returned no bytes)", name=name)
+        return data
+
+    # The first bytes alone, for the line guard; then the rest in one read as
+    # before (pieces only when a raw stream returns short reads).
+    limit = max_bytes + 1
+    pieces: list[bytes] = []
+    total, goal = 0, min(limit, _early_window(max_line_bytes))
+    while total < limit:
+        piece = pull(min(goal, limit) - total)
+        if not len(piece):
+            break
+        pieces.append(piece)
+        total += len(piece)
+        if goal < limit and total >= goal:
+            head = np.frombuffer(b"".join(pieces), dtype=np.uint8)
+            _early_line_guard(head, max_line_bytes, name)
+            goal = limit
+    if total > max_bytes:
+        raise _too_big(total, max_bytes, name)
+    if len(pieces) == 1:
+        return _load(pieces[0], name, max_bytes)
+    buf = _new_buffer(total)
+    at = _PAD_FRONT
+    for piece in pieces:
+        buf[at : at + len(piece)] = np.frombuffer(piece, dtype=np.uint8)
+        at += len(piece)
+    return buf, total
 
 
 # ------------------------------------------------------------------ the head scan
@@ -374,21 +435,35 @@ def _key_value(text: str, sep: str | None) -> tuple[str, str] | None:
 _CONTROL_BYTES = bytes(c for c in range(32) if c not in (9, 10, 12, 13, 26)) + b"\x7f"
 
 
-def _binary_reason(head: bytes) -> str | None:
+# Signatures of files people upload by mistake: checked before the UTF-16
+# test, which their zero bytes would otherwise trip.
+_SIGNATURES = (
+    (b"PK\x03\x04", "it is a zip archive"),
+    (b"\x1f\x8b", "it is gzip-compressed"),
+    (b"\x89PNG", "it is a PNG image"),
+    (b"\xff\xd8\xff", "it is a JPEG image"),
+    (b"GIF8", "it is a GIF image"),
+    (b"%PDF", "it is a PDF document"),
+    (b"\xd0\xcf\x11\xe0", "it is an old Office document (e.g. .xls); export it as CSV"),
+)
+
+
+def _binary_reason(head: bytes) -> tuple[str, int | None] | None:
+    """(why the head is not text, the 1-based line where that shows, if one does), or None."""
     if head.startswith((b"\xff\xfe", b"\xfe\xff")):
-        return "it is UTF-16 text; save it as UTF-8 or Latin-1"
+        return "it is UTF-16 text; save it as UTF-8 or Latin-1", None
+    for signature, reason in _SIGNATURES:
+        if head.startswith(signature):
+            return reason, None
     sample = head[:65536]
     if len(sample) >= 4 and max(sample[0::2].count(0), sample[1::2].count(0)) > len(sample) // 4:
-        return "it looks like UTF-16 text; save it as UTF-8 or Latin-1"
-    if head.startswith(b"PK\x03\x04"):
-        return "it is a zip archive"
-    if head.startswith(b"\x1f\x8b"):
-        return "it is gzip-compressed"
-    if b"\x00" in head:
-        return "it contains binary data"
+        return "it looks like UTF-16 text; save it as UTF-8 or Latin-1", None
+    nul = head.find(b"\x00")
+    if nul >= 0:
+        return "it contains binary data (a NUL byte)", head.count(b"\n", 0, nul) + 1
     control = len(sample) - len(sample.translate(None, _CONTROL_BYTES))
     if control > max(8, len(sample) // 100):
-        return "it contains binary data"
+        return "it contains binary data", None
     return None
 
 
@@ -409,9 +484,9 @@ def _scan_head(buf: np.ndarray, size: int, name: str, max_line_bytes: int) -> _H
         start += 3
     if not head.strip():
         raise TraceError("the file is empty", name=name)
-    reason = _binary_reason(head)
-    if reason:
-        raise TraceError(f"not a text trace: {reason}", name=name)
+    binary = _binary_reason(head)
+    if binary:
+        raise TraceError(f"not a text trace: {binary[0]}", name=name, line=binary[1])
     if b"\n" not in head and b"\r" in head:
         # Classic Mac line ends: make them newlines for the whole file.
         body = buf[_PAD_FRONT : _PAD_FRONT + size]
@@ -447,9 +522,19 @@ def _scan_head(buf: np.ndarray, size: int, name: str, max_line_bytes: int) -> _H
                     kv = _key_value(meta_text, sep)
                     if kv:
                         metadata[kv[0]] = kv[1]
-                if header is not None and len(header) > ncols:
+                if header is not None and len(header) != ncols:
+                    # Fewer names than values is most often a decimal comma or a
+                    # thousands separator in a comma-separated file: never guess
+                    # which values belong together.
+                    hint = (
+                        " (a decimal comma or a thousands separator in comma-separated data? "
+                        "write 12.5, not 12,5 or 1,000)"
+                        if sep == "," and len(header) < ncols
+                        else ""
+                    )
                     raise TraceError(
-                        f"the header names {len(header)} columns but this line has {ncols} values",
+                        f"the header names {len(header)} columns but this line has {ncols} values"
+                        + hint,
                         name=name,
                         line=number,
                     )
@@ -459,6 +544,7 @@ def _scan_head(buf: np.ndarray, size: int, name: str, max_line_bytes: int) -> _H
             if not _is_comment(text):
                 content.append((number, text))
         offset += len(raw) + 1
+    _no_data_under_header(content, name)
     where = (
         "in the file" if whole and len(parts) <= _HEAD_LINES else f"in the first {len(lines)} lines"
     )
@@ -467,6 +553,20 @@ def _scan_head(buf: np.ndarray, size: int, name: str, max_line_bytes: int) -> _H
         "separated by commas, semicolons, tabs or blanks)",
         name=name,
     )
+
+
+def _no_data_under_header(content: list[tuple[int, str]], name: str) -> None:
+    """No line read as data: if a header is followed by a line that starts like a number
+    (``1.100.000;20,5``), that line is the broken first row, and is reported as such."""
+    for index in range(len(content) - 1):
+        below = content[index + 1][1]
+        if not below or below[0] not in "0123456789+-.":
+            continue
+        text = content[index][1]
+        sep = next((s for s in ("\t", ";", ",") if s in text), None)
+        fields = _split_fields(text, sep)
+        if _is_header(fields):
+            _no_broken_rows(content[index + 1 : index + 2], sep, len(fields), fields, name)
 
 
 def _header_fields(text: str, sep: str | None, ncols: int) -> list[str]:
@@ -971,9 +1071,16 @@ def _check_line_lengths(
 
 
 def _blank_comments(buf: np.ndarray, lo: int, hi: int) -> None:
-    """Turn ``# ...`` up to the end of its line into blanks (in place)."""
+    """Turn ``# ...`` up to the end of its line into blanks (in place).
+
+    Only a ``#`` at a line's start or after a blank begins a comment: one
+    inside a field (``1.#QNAN``, ``#N/A`` after a comma) is part of it, and
+    the field is reported as not a number instead of being cut to ``1.``.
+    """
     w = buf[lo:hi]
     hashes = np.flatnonzero(w == ord("#"))
+    if hashes.size:
+        hashes = hashes[buf[lo - 1 + hashes] <= _SPACE]  # buf[lo - 1] is a newline
     if hashes.size == 0:
         return
     nl = np.flatnonzero(w == _NL)
@@ -1333,7 +1440,9 @@ def _rbw_hz(metadata: dict[str, str]) -> float | None:
     return None
 
 
-def _pick_columns(columns: list[_Column], ncols: int, name: str) -> tuple[int, int]:
+def _pick_columns(
+    columns: list[_Column], ncols: int, name: str, line: int | None = None
+) -> tuple[int, int]:
     """(x column, y column): see the module docstring for the rule."""
     xs = [i for i, c in enumerate(columns) if c.kind in ("frequency", "time")]
     x = xs[0] if xs else 0
@@ -1343,7 +1452,20 @@ def _pick_columns(columns: list[_Column], ncols: int, name: str) -> tuple[int, i
         for i, kind in zip(rest, kinds, strict=True):
             if kind in wanted:
                 return x, i
-    raise TraceError("no level or voltage column besides limit/margin columns", name=name)
+    raise TraceError(
+        "no level or voltage column besides limit/margin columns", name=name, line=line
+    )
+
+
+_BRACKETED = re.compile(r"[(\[]\s*([^()\[\]]+?)\s*[)\]]\s*$")
+
+
+def _bracketed(column: _Column) -> str | None:
+    """What a header writes in brackets where a unit goes, when it is no unit we know."""
+    if column.unit is not None:
+        return None
+    m = _BRACKETED.search(column.label)
+    return _shown(m.group(1).encode("utf-8"), "utf-8") if m else None
 
 
 def _column(head: _Head, index: int) -> _Column:
@@ -1367,7 +1489,9 @@ def _axis_scale(
     header_scale = _lookup(table_units, column.unit)
     if column.unit is not None and header_scale is None and column.kind != "other":
         raise TraceError(
-            f"column {column.label} is in {column.unit}, expected {choices}", name=name
+            f"column {column.label} is in {column.unit}, expected {choices}",
+            name=name,
+            line=head.header_line,
         )
     if keyword_scale is not None:
         if header_scale is not None and header_scale != keyword_scale:
@@ -1376,8 +1500,13 @@ def _axis_scale(
     if header_scale is not None:
         return header_scale
     if default is None or head.header is None:
+        written = _bracketed(column)
         raise TraceError(
-            f"column {column.label} states no unit: pass {keyword}= ({choices})", name=name
+            f"column {column.label}: unknown unit '{written}', expected {choices} (or pass {keyword}=)"
+            if written
+            else f"column {column.label} states no unit: pass {keyword}= ({choices})",
+            name=name,
+            line=head.header_line,
         )
     assumed = "seconds" if keyword == "time_unit" else "volts"
     warnings.append(f"column {column.label} states no unit; assumed {assumed}")
@@ -1390,6 +1519,7 @@ def _level_unit(
     keyword_text: str | None,
     warnings: list[str],
     name: str,
+    line: int | None = None,
 ) -> tuple[str, float, float | None]:
     """(canonical unit, dB offset, linear volts scale or None) of the level column."""
     header = units.parse_level_unit(column.unit) if column.unit else None
@@ -1412,16 +1542,23 @@ def _level_unit(
             f"column {column.label} is in {column.unit}, not a level unit "
             "(expected dBuV, dBm, dBuV/m, dBuA or dBpT)",
             name=name,
+            line=line,
         )
+    written = _bracketed(column)
     raise TraceError(
-        f"column {column.label} states no level unit: pass level_unit= (dBuV, dBm, dBuV/m, dBuA or dBpT)",
+        f"column {column.label}: unknown level unit '{written}', expected dBuV, dBm, dBuV/m, dBuA, "
+        "dBpT or V, mV, µV (or pass level_unit=)"
+        if written
+        else f"column {column.label} states no level unit: pass level_unit= (dBuV, dBm, dBuV/m, dBuA or dBpT)",
         name=name,
+        line=line,
     )
 
 
 def _enough(n: int, name: str, minimum: int = MIN_POINTS) -> None:
     if n < minimum:
-        raise TraceError(f"only {n} data points; at least {minimum} are needed", name=name)
+        points = "data point" if n == 1 else "data points"
+        raise TraceError(f"only {n} {points}; at least {minimum} are needed", name=name)
 
 
 def _uniform(
@@ -1582,12 +1719,12 @@ def _read_trace(
                 f"unknown level_unit {level_unit!r}; expected dBuV, dBm, dBuV/m, dBuA or dBpT",
                 name=label,
             )
-    buf, size = _load(source, label, max_bytes)
+    buf, size = _load(source, label, max_bytes, max_line_bytes)
     head = _scan_head(buf, size, label, max_line_bytes)
 
     # Decide what the columns are before reading them: only two are kept.
     described = [_describe(f) for f in head.header] if head.header else []
-    x, y = _pick_columns(described, head.ncols, label)
+    x, y = _pick_columns(described, head.ncols, label, head.header_line)
     xcol, ycol = _column(head, x), _column(head, y)
     chosen = _choose_domain(
         domain,
@@ -1613,7 +1750,9 @@ def _read_trace(
             head,
             label,
         )
-        unit, offset, linear = _level_unit(ycol, level_kw, level_unit, warnings, label)
+        unit, offset, linear = _level_unit(
+            ycol, level_kw, level_unit, warnings, label, head.header_line
+        )
         table = _parse_block(buf, size, head, label, max_line_bytes, keep=(x, y))
         data: Spectrum | TimeRecord = _spectrum(
             table, x, y, scale, unit, offset, linear, ycol, warnings
@@ -1623,6 +1762,7 @@ def _read_trace(
             raise TraceError(
                 f"column {ycol.label} holds levels in dB, not voltage samples of a time record",
                 name=label,
+                line=head.header_line,
             )
         scale = _axis_scale(
             xcol, t_scale, TIME_UNITS, "time_unit", "s, ms, us or ns", 1.0, warnings, head, label
@@ -1762,7 +1902,7 @@ def _read_frequency_table(
 ) -> FrequencyTable:
     label = name or _default_name(source)
     f_scale = _keyword_unit(FREQUENCY_UNITS, frequency_unit, "frequency_unit", "Hz, kHz, MHz, GHz")
-    buf, size = _load(source, label, max_bytes)
+    buf, size = _load(source, label, max_bytes, max_line_bytes)
     head = _scan_head(buf, size, label, max_line_bytes)
     described = [_describe(f) for f in head.header] if head.header else []
     x, y = _pick_columns(described, head.ncols, label)

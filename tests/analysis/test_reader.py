@@ -218,7 +218,7 @@ def test_a_frequency_column_without_unit_is_refused(tmp_path):
     path = write(tmp_path, "nounit.csv", "Frequency,Level (dBuV)\n" + rows())
     assert (
         error_of(path)
-        == "nounit.csv: column Frequency states no unit: pass frequency_unit= (Hz, kHz, MHz or GHz)"
+        == "nounit.csv line 1: column Frequency states no unit: pass frequency_unit= (Hz, kHz, MHz or GHz)"
     )
 
 
@@ -482,7 +482,7 @@ def test_binary_data(tmp_path):
     blob = bytes(range(256)) * 64
     assert (
         error_of(write(tmp_path, "b.csv", blob))
-        == "b.csv: not a text trace: it contains binary data"
+        == "b.csv line 1: not a text trace: it contains binary data (a NUL byte)"
     )
 
 
