@@ -89,13 +89,35 @@ def bucket_starts(
         relative_width = np.expm1(narrowest_decades * np.log(10.0))
         dense_from = int(np.searchsorted(x, 2.0 * max_step / relative_width, side="left"))
 
+    head_x = x[n_positive_from : dense_from + 1]
+    head_log: list[np.ndarray] = []  # log10 of head_x, computed on first use
+
+    def edges_below(values: np.ndarray, log_values: np.ndarray, n_buckets: int) -> np.ndarray:
+        # How many of the edges 10 ** (lo + (hi − lo)·j / n_buckets), j = 1 …
+        # n_buckets − 1, are ≤ each value: searchsorted(edges, values,
+        # side="right") without evaluating every edge. Away from an edge the
+        # count is floor(t), t = (log10(value) − lo)·n_buckets / (hi − lo),
+        # whose rounding (~1e-11) is far below the 1e-6 margin; a value that
+        # close to an edge is compared with that edge computed as above.
+        t = (log_values - lo) * (n_buckets / (hi - lo))
+        nearest = np.rint(t)
+        count = np.floor(t)
+        near = np.abs(t - nearest) < 1e-6
+        if near.any():
+            j = nearest[near]
+            edge = 10.0 ** (lo + (hi - lo) * j / n_buckets)
+            count[near] = j - 1 + ((j >= 1) & (j <= n_buckets - 1) & (edge <= values[near]))
+        return np.clip(count, 0, n_buckets - 1)
+
     def count_for(n_buckets: int) -> int:
-        if dense_from - n_positive_from < n_buckets:
+        head_size = dense_from - n_positive_from
+        if head_size < n_buckets or (dense_from < x.size and head_size < 8 * n_buckets):
             # Bucket number of each sample up to x[dense_from]; every bucket
             # above that one, up to x[-1]'s, holds a sample.
-            edges = 10.0 ** (lo + (hi - lo) * np.arange(1, n_buckets) / n_buckets)
-            head = np.searchsorted(edges, x[n_positive_from : dense_from + 1], side="right")
-            last = int(np.searchsorted(edges, x[-1], side="right"))
+            if not head_log:
+                head_log.append(np.log10(head_x))
+            head = edges_below(head_x, head_log[0], n_buckets)
+            last = int(edges_below(x[-1:], np.log10(x[-1:]), n_buckets)[0])
             return 1 + int(np.count_nonzero(np.diff(head))) + last - int(head[-1])
         inner = inner_starts(n_buckets)
         if inner.size == 0:
