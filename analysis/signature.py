@@ -194,17 +194,35 @@ def similarity(
 ) -> Similarity:
     """Score how well ``other`` explains ``query`` (module docstring), with
     the matches behind the score and a sentence saying why."""
-    c = _Comparison(query, [other], rel_tol, abs_tol_hz, max_order)
+    return similarities(query, [other], rel_tol=rel_tol, abs_tol_hz=abs_tol_hz, max_order=max_order)[0]
+
+
+def similarities(
+    query: Signature,
+    others: Sequence[Signature],
+    *,
+    rel_tol: float = 0.005,
+    abs_tol_hz: float = 0.0,
+    max_order: int = 50,
+) -> list[Similarity]:
+    """:func:`similarity` of ``query`` against each of ``others``, compared all at once."""
+    if not others:
+        return []
+    c = _Comparison(query, others, rel_tol, abs_tol_hz, max_order)
+    return [_similarity_of(query, other, c, k) for k, other in enumerate(others)]
+
+
+def _similarity_of(query: Signature, other: Signature, c: _Comparison, k: int) -> Similarity:
     q = query.frequency_hz
     matches: list[Match] = []
     direct: list[bool] = []
-    for i in np.flatnonzero((c.q_direct[0] > 0) | (c.q_family[0] > 0)):
-        on_family = bool(c.q_family_on[0, i])
-        order = int(c.q_family_order[0, i]) if on_family else None
-        fundamental = float(c.q_family_hz[0, i]) if on_family else None
-        is_direct = bool(c.q_direct[0, i] >= c.q_family[0, i])
+    for i in np.flatnonzero((c.q_direct[k] > 0) | (c.q_family[k] > 0)):
+        on_family = bool(c.q_family_on[k, i])
+        order = int(c.q_family_order[k, i]) if on_family else None
+        fundamental = float(c.q_family_hz[k, i]) if on_family else None
+        is_direct = bool(c.q_direct[k, i] >= c.q_family[k, i])
         if is_direct:
-            other_hz = float(other.frequency_hz[c.q_direct_j[0, i]])
+            other_hz = float(other.frequency_hz[c.q_direct_j[k, i]])
         else:
             other_hz = float(order * fundamental)
         matches.append(
@@ -218,10 +236,10 @@ def similarity(
         )
         direct.append(is_direct)
     return Similarity(
-        score=float(c.score[0]),
+        score=float(c.score[k]),
         matches=tuple(matches),
-        shared_fundamentals_hz=tuple(float(v) for v in query.fundamentals_hz[c.shared_q[0]]),
-        explanation=_explain(query, c, matches, direct),
+        shared_fundamentals_hz=tuple(float(v) for v in query.fundamentals_hz[c.shared_q[k]]),
+        explanation=_explain(query, c, k, matches, direct),
     )
 
 
@@ -234,10 +252,73 @@ def similarity_many(
     max_order: int = 50,
 ) -> np.ndarray:
     """Scores of ``query`` against every candidate at once (same score as
-    :func:`similarity`), as a float array in the candidates' order."""
-    if not candidates:
+    :func:`similarity`), as a float array in the candidates' order.
+
+    ``candidates`` is a sequence of signatures or a :class:`SignatureSet`
+    (the cheaper form for many candidates read from a table)."""
+    if not len(candidates):
         return np.zeros(0)
     return _Comparison(query, candidates, rel_tol, abs_tol_hz, max_order).score
+
+
+@dataclass(frozen=True, eq=False)
+class SignatureSet:
+    """C signatures at once: peak frequencies as a NaN-padded (C, K) matrix and
+    fundamentals as a NaN-padded (C, B) one (levels are not kept: scores do not
+    use them). Built from signatures (:meth:`of`) or straight from table rows
+    (:meth:`from_rows`) without making a Signature per candidate."""
+
+    frequency_hz: np.ndarray
+    fundamentals_hz: np.ndarray
+
+    def __len__(self) -> int:
+        return self.frequency_hz.shape[0]
+
+    @classmethod
+    def of(cls, signatures: Sequence[Signature]) -> SignatureSet:
+        return cls(
+            frequency_hz=_padded([c.frequency_hz for c in signatures])[0],
+            fundamentals_hz=_padded([c.fundamentals_hz for c in signatures])[0],
+        )
+
+    @classmethod
+    def from_rows(
+        cls, group: ArrayLike, value_hz: ArrayLike, is_fundamental: ArrayLike
+    ) -> SignatureSet:
+        """One row per frequency: ``group`` numbers the signatures 0..C−1 in
+        non-decreasing order (every number present), ``value_hz`` is the
+        frequency and ``is_fundamental`` says whether it is a family's
+        fundamental or a peak. Within a signature, rows keep their order."""
+        group = np.asarray(group, dtype=np.int64).reshape(-1)
+        value = _positive_1d(value_hz, "value_hz")
+        fundamental = np.asarray(is_fundamental, dtype=bool).reshape(-1)
+        if not (group.size == value.size == fundamental.size):
+            raise TraceError("signature set: group, value_hz and is_fundamental differ in length")
+        steps = np.diff(group)
+        if group.size and (group[0] != 0 or np.any((steps < 0) | (steps > 1))):
+            raise TraceError("signature set: group must number the signatures 0, 1, 2 … in order")
+        n = int(group[-1]) + 1 if group.size else 0
+        return cls(
+            frequency_hz=_padded_groups(group[~fundamental], value[~fundamental], n),
+            fundamentals_hz=_padded_groups(group[fundamental], value[fundamental], n),
+        )
+
+    def signature(self, i: int) -> Signature:
+        """Signature ``i`` (levels unknown)."""
+        f = self.frequency_hz[i]
+        f = f[np.isfinite(f)]
+        g = self.fundamentals_hz[i]
+        return Signature(frequency_hz=f, level=np.full(f.size, np.nan), fundamentals_hz=g[np.isfinite(g)])
+
+
+def _padded_groups(group: np.ndarray, values: np.ndarray, n: int) -> np.ndarray:
+    """Values of sorted groups 0..n−1 as an (n, widest group) NaN-padded matrix, in row order."""
+    counts = np.bincount(group, minlength=n)
+    out = np.full((n, max(1, int(counts.max(initial=0)))), np.nan)
+    if values.size:
+        starts = np.cumsum(counts) - counts
+        out[group, np.arange(values.size) - starts[group]] = values
+    return out
 
 
 def _padded(arrays: Sequence[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
@@ -267,7 +348,7 @@ class _Comparison:
     def __init__(
         self,
         query: Signature,
-        candidates: Sequence[Signature],
+        candidates: Sequence[Signature] | SignatureSet,
         rel_tol: float,
         abs_tol_hz: float,
         max_order: int,
@@ -281,8 +362,10 @@ class _Comparison:
         self.rel_tol, self.abs_tol_hz, self.max_order = rel_tol, abs_tol_hz, max_order
         q = query.frequency_hz
         fq = query.fundamentals_hz
-        o, o_ok = _padded([c.frequency_hz for c in candidates])
-        fo, _ = _padded([c.fundamentals_hz for c in candidates])
+        if not isinstance(candidates, SignatureSet):
+            candidates = SignatureSet.of(candidates)
+        o, fo = candidates.frequency_hz, candidates.fundamentals_hz
+        o_ok = np.isfinite(o)
         n_candidates = len(candidates)
 
         # Direct matches, (C, M, K); padding is NaN and never matches.
@@ -368,18 +451,18 @@ def _orders_text(orders: Sequence[int]) -> str:
 
 
 def _explain(
-    query: Signature, c: _Comparison, matches: Sequence[Match], direct: Sequence[bool]
+    query: Signature, c: _Comparison, k: int, matches: Sequence[Match], direct: Sequence[bool]
 ) -> str:
     """Shared families with their orders, then the direct matches, in words."""
     parts: list[str] = []
-    for g in query.fundamentals_hz[c.shared_q[0]]:
+    for g in query.fundamentals_hz[c.shared_q[k]]:
         # Query orders on the other's value of this fundamental (within tolerance).
         here = [
             m.order
             for m in matches
             if m.order is not None and abs(m.fundamental_hz - g) <= c.tol(m.fundamental_hz, g)
         ]
-        there = c.o_family_order[0][c.o_family_on[0] & (c.o_family_hz[0] == g)].tolist()
+        there = c.o_family_order[k][c.o_family_on[k] & (c.o_family_hz[k] == g)].tolist()
         if not here and not there:
             continue
         if sorted(set(here)) == sorted(set(there)):

@@ -88,9 +88,10 @@ from analysis.frequencies import (
 )
 from analysis.signature import (
     Signature,
+    SignatureSet,
     Similarity,
     signature_from_frequencies,
-    similarity,
+    similarities,
     similarity_many,
 )
 from emicase.models import (
@@ -724,7 +725,7 @@ def _candidate_cases(
 
 def _candidate_signatures(
     case_ids: list[int], emission_kind: str
-) -> tuple[np.ndarray, np.ndarray, list[Signature]]:
+) -> tuple[np.ndarray, np.ndarray, SignatureSet]:
     """(item ids, their case ids, their signatures) of the candidates' items, by case then item.
 
     Read in the order of the (case, item, role, frequency) index, from the index alone.
@@ -744,31 +745,26 @@ def _candidate_signatures(
         cursor.execute(sql, params or None)
         rows = cursor.fetchall()
     if not rows:
-        return np.zeros(0, np.int64), np.zeros(0, np.int64), []
+        return np.zeros(0, np.int64), np.zeros(0, np.int64), SignatureSet.of([])
     # Ids are far below 2**53, so float64 holds them exactly.
     table = np.array(rows, dtype=float)
     item, case, signed = table[:, 0].astype(np.int64), table[:, 1].astype(np.int64), table[:, 2]
-    starts = np.flatnonzero(np.r_[True, item[1:] != item[:-1]])
-    ends = np.r_[starts[1:], item.size]
-    signatures = []
-    for s, e in zip(starts.tolist(), ends.tolist(), strict=True):  # one per item
-        values = signed[s:e]
-        peaks = values[values > 0]
-        signatures.append(
-            Signature(
-                frequency_hz=peaks,
-                level=np.full(peaks.size, np.nan),
-                fundamentals_hz=-values[values < 0],
-            )
-        )
+    new_item = np.r_[True, item[1:] != item[:-1]]
+    starts = np.flatnonzero(new_item)
+    signatures = SignatureSet.from_rows(np.cumsum(new_item) - 1, np.abs(signed), signed < 0)
     return item[starts], case[starts], signatures
 
 
 @dataclass
 class _Scored:
     ranked: list[Ranked]
-    signatures: dict[int, Signature] = field(default_factory=dict)
+    # The candidates' signatures and, for each ranked item, its row in them.
+    signatures: SignatureSet | None = None
+    row_of_item: dict[int, int] = field(default_factory=dict)
     candidates: int = 0
+
+    def signature(self, item_id: int) -> Signature:
+        return self.signatures.signature(self.row_of_item[item_id])
 
 
 def _rank(
@@ -791,7 +787,7 @@ def _rank(
     if not case_ids:
         return _Scored(ranked=[])
     item_ids, item_cases, signatures = _candidate_signatures(case_ids, filters.emission_kind)
-    if not signatures:
+    if not len(signatures):
         return _Scored(ranked=[], candidates=len(case_ids))
     scores = similarity_many(
         query.signature,
@@ -811,7 +807,8 @@ def _rank(
     ]
     return _Scored(
         ranked=ranked,
-        signatures={int(item_ids[i]): signatures[i] for i in best},
+        signatures=signatures,
+        row_of_item=dict(zip(item_ids[best].tolist(), best.tolist(), strict=True)),
         candidates=len(case_ids),
     )
 
@@ -1038,21 +1035,23 @@ def search(
         .in_bulk([r.item_id for r in shown])
     )
     fixes = fixes_of(list(cases.values()))
+    # The page's hits only, explained in one comparison.
+    explained = similarities(
+        query.signature,
+        [scored.signature(r.item_id) for r in shown],
+        rel_tol=query.tolerance.rel_tol,
+        abs_tol_hz=query.tolerance.abs_tol_hz,
+        max_order=MAX_ORDER,
+    )
     hits = []
-    for r in shown:  # the page's hits only
+    for r, why in zip(shown, explained, strict=True):
         case = cases[r.case_id]
         hits.append(
             Hit(
                 case=case,
                 score=r.score,
                 item=items[r.item_id],
-                similarity=similarity(
-                    query.signature,
-                    scored.signatures[r.item_id],
-                    rel_tol=query.tolerance.rel_tol,
-                    abs_tol_hz=query.tolerance.abs_tol_hz,
-                    max_order=MAX_ORDER,
-                ),
+                similarity=why,
                 shared=case.product.team_id not in mine_set,
                 fixes=tuple(fixes.get(case.pk, [])),
             )

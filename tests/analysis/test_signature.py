@@ -6,8 +6,10 @@ import pytest
 from analysis.errors import TraceError
 from analysis.signature import (
     Signature,
+    SignatureSet,
     signature_from_frequencies,
     signature_of,
+    similarities,
     similarity,
     similarity_many,
 )
@@ -127,6 +129,51 @@ def test_similarity_many_agrees_with_similarity():
     np.testing.assert_allclose(scores, expected, rtol=1e-12, atol=1e-12)
     assert scores[-2] == pytest.approx(1.0) and scores[-1] == 0.0
     assert similarity_many(query, []).shape == (0,)
+
+
+def test_similarities_explain_each_candidate_as_similarity_does():
+    query = sig([25, 75, 125, 175, 48.1], [25])
+    others = [sig([175, 225, 275], [25]), sig([48, 300]), sig([]), query, sig(UNRELATED_MHZ, [33.3])]
+    together = similarities(query, others)
+    alone = [similarity(query, o) for o in others]  # reference: one comparison per candidate
+    assert [(t.score, t.matches, t.shared_fundamentals_hz, t.explanation) for t in together] == [
+        (a.score, a.matches, a.shared_fundamentals_hz, a.explanation) for a in alone]
+    assert "same 25 MHz family" in together[0].explanation
+    assert similarities(query, []) == []
+
+
+def test_a_signature_set_from_table_rows_scores_as_the_signatures_do():
+    rng = np.random.default_rng(11)
+    query = sig([25, 48, 75, 96, 125, 144], [25, 48])
+    candidates = [
+        sig(
+            np.sort(rng.uniform(20, 400, rng.integers(0, 12))),
+            np.sort(rng.choice([25, 48, 16, 33.3], rng.integers(0, 3), replace=False)),
+        )
+        for _ in range(40)
+    ]
+    # Rows as a table holds them: per signature its peaks, then its fundamentals.
+    group = np.concatenate([np.full(c.frequency_hz.size + c.fundamentals_hz.size, i)
+                            for i, c in enumerate(candidates)])
+    value = np.concatenate([np.r_[c.frequency_hz, c.fundamentals_hz] for c in candidates])
+    is_fundamental = np.concatenate([np.r_[np.zeros(c.frequency_hz.size, bool), np.ones(c.fundamentals_hz.size, bool)]
+                                     for c in candidates])
+    rows = SignatureSet.from_rows(group, value, is_fundamental)
+    assert len(rows) == len(candidates)
+    # Reference: the list form, already checked against one-by-one similarity() above.
+    np.testing.assert_array_equal(similarity_many(query, rows), similarity_many(query, candidates))
+    back = rows.signature(7)
+    np.testing.assert_array_equal(back.frequency_hz, candidates[7].frequency_hz)
+    np.testing.assert_array_equal(back.fundamentals_hz, candidates[7].fundamentals_hz)
+
+
+@pytest.mark.parametrize(
+    "group, value",
+    [([0, 2], [1e6, 2e6]), ([1, 1], [1e6, 2e6]), ([0, 1, 0], [1e6, 2e6, 3e6]), ([0, 0], [1e6, -2e6]), ([0], [1e6, 2e6])],
+)
+def test_a_signature_set_refuses_malformed_rows(group, value):
+    with pytest.raises(TraceError):
+        SignatureSet.from_rows(group, value, np.zeros(len(value), bool))
 
 
 def test_to_dict_and_from_dict_round_trip_through_json():
