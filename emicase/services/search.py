@@ -75,7 +75,7 @@ import numpy as np
 from django.conf import settings
 from django.core.exceptions import ValidationError
 from django.db import connection, transaction
-from django.db.models import F
+from django.db.models import Exists, F, OuterRef, Q
 from django.utils import timezone
 
 from analysis.errors import TraceError
@@ -581,13 +581,15 @@ def visible_teams(user) -> tuple[list[int], list[int]]:
     """(the user's team ids, the ids of other teams that share their closed cases)."""
     if not user.is_authenticated:
         return [], []
-    mine = sorted(Membership.objects.filter(user=user).values_list("team_id", flat=True))
-    sharing = sorted(
-        Team.objects.filter(share_closed_cases=True)
-        .exclude(pk__in=mine)
-        .values_list("pk", flat=True)
+    # One query: the teams the user belongs to or that share, each saying which.
+    rows = (
+        Team.objects.annotate(member=Exists(Membership.objects.filter(team=OuterRef("pk"), user=user)))
+        .filter(Q(member=True) | Q(share_closed_cases=True))
+        .order_by("pk")
+        .values_list("pk", "member")
     )
-    return mine, sharing
+    mine = [pk for pk, member in rows if member]
+    return mine, [pk for pk, member in rows if not member]
 
 
 def _around(f: np.ndarray, tolerance: Tolerance) -> tuple[np.ndarray, np.ndarray]:
