@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import csv
 import math
+import re
 from dataclasses import dataclass
 
 from django.contrib import messages
@@ -1135,12 +1136,20 @@ def case_report(request, case_id):
     return render(request, "emicase/report.html", ctx)
 
 
-FORMULA_LEAD = ("=", "+", "-", "@", "\t", "\r")
+# The characters a spreadsheet reads as the start of a formula (OWASP, "CSV
+# Injection"), and their full-width forms, which some East Asian spreadsheet
+# locales treat the same way (from memory).
+FORMULA_LEAD = ("=", "+", "-", "@", "\t", "\r", "\uff1d", "\uff0b", "\uff0d", "\uff20")
+_PLAIN_NUMBER = re.compile(r"-?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?", re.ASCII)
 
 
 def csv_safe(value):
-    """A text cell that a spreadsheet would run as a formula gets a leading apostrophe; numbers pass."""
-    if isinstance(value, str) and value.startswith(FORMULA_LEAD):
+    """A text cell that a spreadsheet would run as a formula gets a leading apostrophe.
+
+    Numbers pass, and so does text that is only a plain number (``-3.2``): a
+    spreadsheet reads it as that number, never as a formula.
+    """
+    if isinstance(value, str) and value.startswith(FORMULA_LEAD) and not _PLAIN_NUMBER.fullmatch(value):
         return "'" + value
     return value
 
