@@ -89,17 +89,21 @@ def bucket_starts(
         relative_width = np.expm1(narrowest_decades * np.log(10.0))
         dense_from = int(np.searchsorted(x, 2.0 * max_step / relative_width, side="left"))
 
+    # Bucket counts from the samples' logs (see edges_below) need t's rounding
+    # — a few ulps of log10(x) times n_buckets / (hi − lo) — far below its
+    # 1e-6 margin; a log range too narrow for that evaluates every edge.
     head_x = x[n_positive_from : dense_from + 1]
-    head_log: list[np.ndarray] = []  # log10 of head_x, computed on first use
+    head_log: list[np.ndarray] = []  # log10(head_x) − lo, computed on first use
+    precise = 4.4e-16 * max(1.0, abs(lo), abs(hi)) * budget * _MAX_BUCKET_GROWTH < 1e-8 * (hi - lo)
 
-    def edges_below(values: np.ndarray, log_values: np.ndarray, n_buckets: int) -> np.ndarray:
+    def edges_below(values: np.ndarray, above_lo: np.ndarray, n_buckets: int) -> np.ndarray:
         # How many of the edges 10 ** (lo + (hi − lo)·j / n_buckets), j = 1 …
-        # n_buckets − 1, are ≤ each value: searchsorted(edges, values,
-        # side="right") without evaluating every edge. Away from an edge the
-        # count is floor(t), t = (log10(value) − lo)·n_buckets / (hi − lo),
-        # whose rounding (~1e-11) is far below the 1e-6 margin; a value that
-        # close to an edge is compared with that edge computed as above.
-        t = (log_values - lo) * (n_buckets / (hi - lo))
+        # n_buckets − 1, are ≤ each value, as searchsorted(edges, values,
+        # side="right") says, without evaluating every edge: away from an
+        # edge it is floor(t), t = (log10(value) − lo)·n_buckets / (hi − lo);
+        # a value within 1e-6 of an edge is compared with that edge, computed
+        # as above.
+        t = above_lo * (n_buckets / (hi - lo))
         nearest = np.rint(t)
         count = np.floor(t)
         near = np.abs(t - nearest) < 1e-6
@@ -107,17 +111,24 @@ def bucket_starts(
             j = nearest[near]
             edge = 10.0 ** (lo + (hi - lo) * j / n_buckets)
             count[near] = j - 1 + ((j >= 1) & (j <= n_buckets - 1) & (edge <= values[near]))
-        return np.clip(count, 0, n_buckets - 1)
+        return np.clip(count, 0, n_buckets - 1, out=count)
 
     def count_for(n_buckets: int) -> int:
         head_size = dense_from - n_positive_from
         if head_size < n_buckets or (dense_from < x.size and head_size < 8 * n_buckets):
             # Bucket number of each sample up to x[dense_from]; every bucket
             # above that one, up to x[-1]'s, holds a sample.
+            if not precise:
+                edges = 10.0 ** (lo + (hi - lo) * np.arange(1, n_buckets) / n_buckets)
+                head = np.searchsorted(edges, head_x, side="right")
+                last = int(np.searchsorted(edges, x[-1], side="right"))
+                return 1 + int(np.count_nonzero(np.diff(head))) + last - int(head[-1])
             if not head_log:
-                head_log.append(np.log10(head_x))
+                head_log.append(np.log10(head_x) - lo)
             head = edges_below(head_x, head_log[0], n_buckets)
-            last = int(edges_below(x[-1:], np.log10(x[-1:]), n_buckets)[0])
+            # x[-1] is 10 ** hi: every edge, the highest (hi − lo) / n_buckets
+            # decades below it, lies under it.
+            last = n_buckets - 1
             return 1 + int(np.count_nonzero(np.diff(head))) + last - int(head[-1])
         inner = inner_starts(n_buckets)
         if inner.size == 0:

@@ -120,3 +120,24 @@ def test_bad_input_raises_a_trace_error():
         envelope(np.array([1.0, 2.0]), np.array([np.nan, 1.0]))
     with pytest.raises(TraceError, match="max_points"):
         envelope(np.arange(10.0), np.arange(10.0), max_points=1)
+
+
+@pytest.mark.parametrize("bins", [5_000, 50_000, 500_000])
+def test_the_step_hint_gives_the_same_buckets_even_with_samples_on_bucket_edges(bins):
+    # bucket_starts counts buckets from the samples' log positions when given
+    # max_step, and by evaluating every edge without it; the docstring
+    # promises the same buckets. Samples sitting exactly on (or one ulp
+    # either side of) the edges of candidate bucket counts are the hard case.
+    x = np.arange(1, bins + 1) * 1e3  # an FFT's bins, DC dropped
+    lo, hi = np.log10(x[0]), np.log10(x[-1])
+    on_edges = [x]
+    for n_buckets in (2_000, 2_001, 3_999, 9_000, 15_999):
+        edges = 10.0 ** (lo + (hi - lo) * np.arange(1, n_buckets) / n_buckets)
+        edges = edges[edges < x[min(bins - 1, 3_000)]]
+        on_edges += [edges, np.nextafter(edges, 0), np.nextafter(edges, np.inf)]
+    x = np.unique(np.concatenate(on_edges))
+    step = float(np.max(np.diff(x)))
+    np.testing.assert_array_equal(
+        bucket_starts(x, max_points=4000, log_x=True, max_step=step),
+        bucket_starts(x, max_points=4000, log_x=True),
+    )
