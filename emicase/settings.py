@@ -85,6 +85,8 @@ INSTALLED_APPS = [
 
 MIDDLEWARE = [
     "django.middleware.security.SecurityMiddleware",
+    # A database that is away answers 503 + Retry-After, not 500 (see availability.py).
+    "emicase.availability.DatabaseUnavailableMiddleware",
     "emicase.middleware.RequestSizeLimitMiddleware",
     "whitenoise.middleware.WhiteNoiseMiddleware",
     "django.contrib.sessions.middleware.SessionMiddleware",

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import logging
+
 from django.conf import settings
 from django.core.exceptions import ValidationError
 from django.core.files.uploadedfile import UploadedFile
@@ -10,6 +12,8 @@ from django.db import transaction
 from emicase.models import Capture, Case, CaseEvent, Domain, Revision, Scan
 from emicase.services.access import require_role
 from emicase.services.cases import event_add
+
+log = logging.getLogger("emicase.uploads")
 
 # A peek at the first bytes is enough to refuse what is plainly not a text
 # trace (an image, a zip, a spreadsheet); the engine judges everything else.
@@ -38,10 +42,21 @@ def check_trace_file(file: UploadedFile, *, domain: str) -> None:
 
 
 def _enqueue(task_name: str, pk: int) -> None:
+    """Queue the analysis once the row is committed; never fail the upload if the broker is away."""
     from emicase import tasks
 
     task = getattr(tasks, task_name)
-    transaction.on_commit(lambda: task.delay(pk))
+
+    def send() -> None:
+        try:
+            task.delay(pk)
+        except Exception as exc:  # any broker or network error: the row is stored, it just waits
+            # The stored row is the promise: it stays 'queued' and sweep_stuck sends it
+            # again, so an accepted upload is never lost because Redis was restarting.
+            log.warning("%s %s stored but not queued (%s: %s); the sweeper will queue it",
+                        task_name, pk, type(exc).__name__, exc)
+
+    transaction.on_commit(send)
 
 
 @transaction.atomic
