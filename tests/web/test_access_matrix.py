@@ -621,8 +621,8 @@ def world(django_db_setup, django_db_blocker, tmp_path_factory):
             }
             w.mine, w.theirs = _rows_of(team), _rows_of(far)
             w.markers = {
-                "mine": ["Bench controller", "Bench open case"],
-                "theirs": ["Far controller", "Far open case"],
+                "mine": ["Bench controller", "Bench open case", "Bench closed case"],
+                "theirs": ["Far controller", "Far open case", "Far closed case"],
             }
             w.media = Path(media)
             yield w
@@ -839,3 +839,37 @@ def test_a_reference_to_another_teams_object_reads_as_a_missing_one(world, db, u
         for pk in (ours, missing)
     ]
     assert words[0] == words[1] and "in your teams" in words[0], words
+
+
+# Routes that hold no team's data: the sign-in pages, the load balancer's probe, the
+# per-user token pages, the API's root, schema and docs, and Django's admin (staff only).
+NOT_TEAM_DATA = ("admin/", "signin/", "signout/", "health/", "account/", "api/docs/", "api/schema/")
+
+
+def _all_routes(patterns, prefix: str = ""):
+    for p in patterns:
+        if hasattr(p, "url_patterns"):
+            yield from _all_routes(p.url_patterns, prefix + str(p.pattern))
+        else:
+            yield (prefix + str(p.pattern)).replace("^", "")
+
+
+def test_every_route_with_team_data_has_a_row():
+    """A new page or endpoint fails here until the matrix says who may use it."""
+    from collections import defaultdict
+    from urllib.parse import urlsplit
+
+    from django.urls import Resolver404, get_resolver, resolve
+
+    dummy = defaultdict(lambda: "1", team_slug="bench", far_team_slug="far")
+    covered = set()
+    for row in MATRIX:
+        try:
+            match = resolve(urlsplit(row.url.format_map(dummy)).path)
+        except Resolver404:
+            continue  # /media/...: no route, which is the point of those rows
+        covered.add(match.route.replace("^", ""))
+    routes = {
+        r for r in _all_routes(get_resolver().url_patterns) if not r.startswith(NOT_TEAM_DATA)
+    } - {"api/"}
+    assert routes - covered == set()
