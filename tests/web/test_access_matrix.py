@@ -80,6 +80,7 @@ MADE = Out(201, changed=True)
 CHANGED = Out(200, changed=True)  # an API action's write
 GONE_204 = Out(204, changed=True)  # deleted
 SAME = Out(200, changed=False)  # the form is shown again with its error; nothing stored
+STAYS = Out(302, changed=False)  # back to the page with a message saying why; nothing changed
 NO = Out(403, changed=False)
 GONE = Out(404, changed=False)
 BAD = Out(400, changed=False)
@@ -186,6 +187,9 @@ MATRIX = [
     R("case",           "report CSV",          "get",    "/cases/{case}/report.csv",                  None,           OK,      OK,      OK,      GONE,    LOGIN),
     R("case",           "locate page",         "get",    "/cases/{case}/locate/",                     None,           OK,      OK,      OK,      GONE,    LOGIN),
     R("case",           "move",                "post",   "/cases/{case}/move/",                       "move",         DONE,    DONE,    NO,      GONE,    LOGIN),
+    # Closing is the lead's: moving by hand never gets there, nor out of it (the page says why).
+    R("case",           "move to closed",      "post",   "/cases/{case}/move/",                       "move_closed",  STAYS,   STAYS,   NO,      GONE,    LOGIN),
+    R("case",           "move a closed case",  "post",   "/cases/{closed}/move/",                     "move",         STAYS,   STAYS,   NO,      GONE,    LOGIN),
     R("case",           "close page",          "get",    "/cases/{case}/close/",                      None,           OK,      NO,      NO,      GONE,    LOGIN),
     R("case",           "close (waive)",       "post",   "/cases/{case}/close/",                      "waive",        DONE,    NO,      NO,      GONE,    LOGIN),
     R("case",           "close (fixed)",       "post",   "/cases/{case}/close/",                      "close_fixed",  DONE,    NO,      NO,      GONE,    LOGIN),
@@ -217,6 +221,7 @@ MATRIX = [
     R("search",         "typed, we share",     "get",    "/similar-problems/?frequencies=" + QUERY,   None,           OURS,    OURS,    OURS,    hits("far_case", "far_closed", "closed"), LOGIN, given="we_share"),
     # ... and its page, its files, its timeline and searching by it stay 404 to them.
     R("case",           "page, we share",      "get",    "/cases/{closed}/",                          None,           OK,      OK,      OK,      GONE,    LOGIN, given="we_share"),
+    R("case",           "reopen, we share",    "post",   "/cases/{closed}/reopen/",                   "reopen",       DONE,    NO,      NO,      GONE,    LOGIN, given="we_share"),
     R("case",           "API detail, we share", "get",   "/api/cases/{closed}/",                      None,           OK,      OK,      OK,      GONE,    ANON,  given="we_share"),
     R("comment",        "API timeline, we share", "get", "/api/cases/{closed}/timeline/",             None,           OK,      OK,      OK,      GONE,    ANON,  given="we_share"),
     R("scan",           "file, we share",      "get",    "/scans/{closed_scan}/file/",                None,           FILE,    FILE,    FILE,    GONE,    LOGIN, given="we_share"),
@@ -252,6 +257,8 @@ MATRIX = [
     R("case",           "API move",            "post",   "/api/cases/{case}/move/",                   "move",         CHANGED, CHANGED, NO,     GONE,    ANON),
     R("case",           "API close (waive)",   "post",   "/api/cases/{case}/close/",                  "waive",        CHANGED, NO,      NO,      GONE,    ANON),
     R("case",           "API close (fixed)",   "post",   "/api/cases/{case}/close/",                  "close_fixed",  CHANGED, NO,      NO,      GONE,    ANON),
+    R("case",           "API move to closed",  "post",   "/api/cases/{case}/move/",                   "move_closed",  BAD,     BAD,     NO,      GONE,    ANON),
+    R("case",           "API move a closed case", "post", "/api/cases/{closed}/move/",                "move",         BAD,     BAD,     NO,      GONE,    ANON),
     R("case",           "API reopen",          "post",   "/api/cases/{closed}/reopen/",               "reopen",       CHANGED, NO,      NO,      GONE,    ANON),
     R("failing freq",   "API confirm",         "post",   "/api/cases/{case}/confirm-frequencies/",    "confirm",      CHANGED, CHANGED, NO,     GONE,    ANON),
     R("comment",        "API timeline",        "get",    "/api/cases/{case}/timeline/",               None,           OK,      OK,      OK,      GONE,    ANON),
@@ -369,6 +376,7 @@ BODIES = {
         "file": probe_trace("c2.csv"),
     },
     "move": lambda w: {"to": "hunting"},
+    "move_closed": lambda w: {"to": "closed"},
     "waive": lambda w: {"closure": "waived", "reason": "Accepted by the customer for the pilot"},
     "close_fixed": lambda w: {"closure": "fixed", "countermeasure": w.ids["verified_cm"]},
     "reopen": lambda w: {"reason": "The test house disagrees"},
