@@ -173,6 +173,7 @@ def _early_line_guard(head: np.ndarray, max_line_bytes: int, name: str) -> None:
     (1 GB of digits, a binary blob) is refused without loading it. Text that
     is binary anyway is left to the head scan, which says what it is.
     """
+    head = head[: _early_window(max_line_bytes)]  # the same bytes whatever the source
     if head.size <= max_line_bytes:
         return
     breaks = np.flatnonzero(head == _NL)
@@ -198,6 +199,7 @@ def _load(
             raise _too_big(size, max_bytes, name)
         buf = _new_buffer(size)
         buf[_PAD_FRONT : _PAD_FRONT + size] = np.frombuffer(view, dtype=np.uint8)
+        _early_line_guard(buf[_PAD_FRONT : _PAD_FRONT + size], max_line_bytes, name)
         return buf, size
     if isinstance(source, str | os.PathLike):
         try:
@@ -262,12 +264,13 @@ def _load(
     if total > max_bytes:
         raise _too_big(total, max_bytes, name)
     if len(pieces) == 1:
-        return _load(pieces[0], name, max_bytes)
+        return _load(pieces[0], name, max_bytes, max_line_bytes)
     buf = _new_buffer(total)
     at = _PAD_FRONT
     for piece in pieces:
         buf[at : at + len(piece)] = np.frombuffer(piece, dtype=np.uint8)
         at += len(piece)
+    _early_line_guard(buf[_PAD_FRONT : _PAD_FRONT + total], max_line_bytes, name)
     return buf, total
 
 

@@ -4,15 +4,22 @@
    never another exception.
 2. Numbers written in any common format come back as exactly the float the
    text denotes (reference: Python's correctly rounded float()).
+3. The hostile corpus (tests/hostile/corpus.py), mutated, still gets a Trace
+   or a TraceError; so does anything under tight size and line guards.
+4. The same bytes read alike from bytes, a file object, a raw stream of short
+   reads and a path.
 """
+
+import io
 
 import numpy as np
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from analysis.errors import TraceError
-from analysis.reader import read_trace
-from analysis.types import Trace
+from analysis.reader import read_frequency_table, read_trace
+from analysis.types import SPECTRUM, Trace
+from tests.hostile.corpus import CORPUS
 
 FAST = settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 
@@ -149,3 +156,103 @@ def test_written_frequencies_read_back_exactly(start, step, n, fmt):
     trace = read_trace(("Frequency (Hz),Level (dBuV)\n" + body).encode())
     # reference: Python's float() of the very text written
     assert trace.data.frequency_hz.tolist() == expected
+
+
+# --- the hostile corpus, mutated; the same bytes from every kind of source; tight guards
+
+_SMALL = [h for h in CORPUS if len(h.content) <= 20_000]
+
+
+@FAST
+@given(
+    case=st.sampled_from(_SMALL),
+    edits=st.lists(
+        st.tuples(
+            st.floats(0, 1), st.sampled_from(["flip", "insert", "delete", "cut"]), st.binary(min_size=1, max_size=4)
+        ),
+        max_size=4,
+    ),
+)
+def test_a_mutated_hostile_file_gives_a_trace_or_a_trace_error(case, edits):
+    content = bytearray(case.content)
+    for where, how, junk in edits:
+        at = int(where * len(content))
+        if how == "flip":
+            content[at : at + len(junk)] = junk
+        elif how == "insert":
+            content[at:at] = junk
+        elif how == "delete":
+            del content[at : at + len(junk)]
+        else:
+            del content[at:]
+    _reads_or_refuses(bytes(content), **case.kwargs)
+
+
+def _outcome(read) -> tuple:
+    try:
+        trace = read()
+    except TraceError as err:
+        return ("error", str(err))
+    data = trace.data
+    if trace.domain == SPECTRUM:
+        return ("spectrum", data.frequency_hz.tolist(), data.level.tolist(), trace.warnings)
+    return ("time", data.time_s.tolist(), data.volts.tolist(), trace.warnings)
+
+
+class _Trickle(io.RawIOBase):
+    def __init__(self, content: bytes, step: int):
+        self.content, self.pos, self.step = content, 0, step
+
+    def readable(self) -> bool:
+        return True
+
+    def readinto(self, b) -> int:
+        n = min(len(b), self.step, len(self.content) - self.pos)
+        b[:n] = self.content[self.pos : self.pos + n]
+        self.pos += n
+        return n
+
+
+@settings(
+    max_examples=60,
+    deadline=None,
+    suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture],
+)
+@given(
+    lines=st.lists(_LINE, min_size=0, max_size=40),
+    step=st.integers(1, 64),
+    limit=st.sampled_from([24, 64, 1 << 20]),
+)
+def test_bytes_a_file_object_a_trickling_stream_and_a_path_read_alike(lines, step, limit, tmp_path):
+    content = "\n".join(lines).encode("utf-8")
+    path = tmp_path / "same.csv"
+    path.write_bytes(content)
+    kw = {"name": "same.csv", "max_line_bytes": limit}
+    expected = _outcome(lambda: read_trace(content, **kw))
+    assert _outcome(lambda: read_trace(io.BytesIO(content), **kw)) == expected
+    assert _outcome(lambda: read_trace(_Trickle(content, step), **kw)) == expected
+    assert _outcome(lambda: read_trace(path, **kw)) == expected
+
+
+@FAST
+@given(st.lists(_LINE, min_size=0, max_size=40), st.integers(8, 200), st.integers(1, 4000))
+def test_tight_guards_give_a_trace_or_a_trace_error(lines, max_line_bytes, max_bytes):
+    _reads_or_refuses(
+        "\n".join(lines).encode("utf-8"), max_line_bytes=max_line_bytes, max_bytes=max_bytes
+    )
+
+
+@FAST
+@given(
+    st.one_of(
+        st.binary(max_size=1500),
+        st.lists(_LINE, max_size=30).map(lambda ls: "\n".join(ls).encode()),
+    )
+)
+def test_a_correction_table_gives_a_table_or_a_trace_error(content):
+    try:
+        table = read_frequency_table(content, name="table.csv")
+    except TraceError as err:
+        assert str(err).startswith("table.csv") and "internal reader error" not in str(err)
+        return
+    assert np.all(np.diff(table.frequency_hz) > 0) and table.frequency_hz[0] > 0
