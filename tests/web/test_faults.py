@@ -52,8 +52,7 @@ def stack(tmp_path_factory):
     # clients see are answered the same way either way.
     st = Stack(tmp_path_factory.mktemp("faults"), celery_workers=1, concurrency=2, web_workers=2,
                web_threads=4, debug=True)
-    st.start()
-    st.seeded = st.seed(9)["clients"]
+    st.start(clients=9)
     yield st
     st.stop()
 

@@ -314,6 +314,7 @@ class Stack:
         self.web_port = 0
         self.env: dict = {}
         self._worker_serial = 0
+        self.seeded: list[dict] = []
 
     # -- addresses
 
@@ -338,15 +339,16 @@ class Stack:
 
     # -- life cycle
 
-    def start(self) -> Stack:
+    def start(self, clients: int = 0) -> Stack:
+        """Start everything and wait until it answers; ``clients``: seed that many (``self.seeded``)."""
         try:
-            self._start()
+            self._start(clients)
         except BaseException:
             self.stop()
             raise
         return self
 
-    def _start(self) -> None:
+    def _start(self, clients: int) -> None:
         self.root.mkdir(parents=True, exist_ok=True)
         if self.postgres is not None:
             self.postgres.init()
@@ -354,7 +356,23 @@ class Stack:
         if self.redis is not None:
             self.redis.start()
         broker_db = int(urlparse(self.machine_redis_url).path.lstrip("/") or 0) if self.machine_redis_url else 0
-        create_database(self.database_url, empty=True)
+        # A private cluster is new; the machine's database is emptied.
+        create_database(self.database_url, empty=not self.private)
+        self.env = self._environment(broker_db)
+        if self.machine_redis_url:
+            self._purge_machine_redis(broker_db)
+        # Start the servers first and prepare the database meanwhile: each spends its first
+        # seconds importing, and neither reads a table before a request or a task comes.
+        self.start_web(wait=False)
+        for _ in range(self.celery_workers):
+            self.start_worker()
+        # One Django process migrates, collects the static files (production settings serve
+        # hashed names from a manifest), seeds the clients and pings the workers.
+        self.seeded = self.module("prepare", str(clients), str(self.celery_workers), "90",
+                                  "0" if self.debug else "1", timeout=400)["clients"]
+        self.wait_web()
+
+    def _environment(self, broker_db: int) -> dict:
         var = self.root / "var"
         env = {k: v for k, v in os.environ.items()
                if k not in ("EMICASE_DATABASE_NAME", "CELERY_RESULT_BACKEND", "PYTEST_CURRENT_TEST")}
@@ -374,18 +392,7 @@ class Stack:
             PYTHONUNBUFFERED="1",
         )
         env.update(self.extra_env)
-        self.env = env
-        if self.machine_redis_url:
-            self._purge_machine_redis(broker_db)
-        self.manage("migrate", "--noinput", "-v0", timeout=300)
-        if not self.debug:
-            # Production settings serve hashed static names from a manifest.
-            self.manage("collectstatic", "--noinput", "-v0", timeout=300)
-        # Start them all, then wait: each spends its first seconds importing.
-        self.start_web(wait=False)
-        for _ in range(self.celery_workers):
-            self.start_worker()
-        self.wait_web()
+        return env
 
     def seed(self, clients: int, timeout: float = 120.0) -> dict:
         """Seed ``clients`` users, tokens and cases (``seed_clients``) once every live worker answers a ping."""
@@ -797,12 +804,20 @@ def main(argv: list[str]) -> None:
     import django
 
     django.setup()
-    if argv[0] == "seed":
+    if argv[0] == "prepare":
+        from django.core.management import call_command
+
+        call_command("migrate", interactive=False, verbosity=0)
+        if argv[4] == "1":
+            call_command("collectstatic", interactive=False, verbosity=0)
+        out = {**seed_clients(int(argv[1])), **_ping(int(argv[2]), float(argv[3]))}
+    elif argv[0] == "seed":
         out = {**_ping(int(argv[2]), float(argv[3])), **seed_clients(int(argv[1]))}
     elif argv[0] == "ping":
         out = _ping(int(argv[1]), float(argv[2]))
     else:
-        raise SystemExit(f"unknown command {argv[0]!r}: seed N WORKERS TIMEOUT | ping WORKERS TIMEOUT")
+        raise SystemExit(f"unknown command {argv[0]!r}: prepare N WORKERS TIMEOUT STATIC | seed N WORKERS TIMEOUT | "
+                         "ping WORKERS TIMEOUT")
     print(json.dumps(out))
 
 
