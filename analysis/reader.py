@@ -1183,6 +1183,164 @@ def _csv_fields(
     return starts, ends, first
 
 
+# --- fixed-width blocks ------------------------------------------------------------
+#
+# Most exports print every value of a column with one format ("%.3f"), so the
+# lines of a block are often all the same length with every field at the same
+# place: the block is a (lines, width) byte matrix. Such a block is checked
+# with one range test per byte position (digits where line 1 has a digit, the
+# separator, the decimal mark and the line end where it has those; a digit or
+# a sign at each field's first byte) and each column's digits are combined in
+# one matrix-vector product with their powers of ten: with at most 15 digits
+# every product and partial sum is an integer below 2**53, so the mantissa is
+# exact in any order of summation, and the value is then the same single
+# correctly rounded division by 10**fraction_digits as in _parse_plain. Any
+# block that fails a test goes through the general parse, which finds and
+# names the problem.
+
+_MAX_FIXED_DIGITS = 15
+_DIGIT_PATTERN = bytes.maketrans(b"0123456789", b"0000000000")
+
+
+@dataclass(frozen=True, eq=False)
+class _Layout:
+    """Where the fields of a fixed-width block sit (see _fixed_width_block)."""
+
+    width: int  # bytes per line, newline included
+    low: np.ndarray  # per byte of a line: the lowest allowed value
+    span: np.ndarray  # ... and how far above it the allowed values reach
+    first: tuple[int, ...]  # each field's first byte
+    single: tuple[bool, ...]  # the field has one digit place: its first byte must be a digit
+    weights: tuple[np.ndarray, ...]  # per field: 10 ** place of each digit after the first byte
+    lead: tuple[float, ...]  # per field: 10 ** place of the first byte
+    scale: tuple[float, ...]  # per field: 10 ** digits after the mark
+    p10: tuple[int, ...]  # per field: −(digits after the mark)
+
+
+def _line_layout(line: bytes, sep: int, ncols: int, comma_decimal: bool) -> _Layout | None:
+    """The layout of ``line`` (newline included) if it is plain decimals, else None."""
+    body = line[:-1]
+    cr = body.endswith(b"\r")
+    if cr:
+        body = body[:-1]
+    fields = body.split(bytes([sep]))
+    if len(fields) != ncols:
+        return None
+    width = len(line)
+    low = np.zeros(width, dtype=np.uint8)
+    span = np.zeros(width, dtype=np.uint8)
+    low[-1] = _NL
+    if cr:
+        low[-2] = _CR
+    marks = (_DOT, _COMMA) if comma_decimal else (_DOT,)
+    first, single, weights, lead, scale, p10 = [], [], [], [], [], []
+    at = 0
+    for text in fields:
+        if not text:
+            return None
+        mark = [i for i, ch in enumerate(text) if ch in marks]
+        places = len(text) - len(mark)
+        if len(mark) > 1 or places > _MAX_FIXED_DIGITS or (mark and mark[0] == 0):
+            return None
+        signed = text[0] in (_PLUS, _MINUS)
+        if signed and places == 1:
+            return None  # a sign and no digit
+        if not all(48 <= ch <= 57 for i, ch in enumerate(text) if i and i not in mark):
+            return None
+        if not (signed or 48 <= text[0] <= 57):
+            return None
+        fraction = len(text) - 1 - mark[0] if mark else 0
+        weight = np.zeros(width)
+        place = 0
+        for i in range(len(text) - 1, -1, -1):  # a loop over the bytes of one line
+            if i in mark:
+                low[at + i] = text[i]
+                continue
+            low[at + i], span[at + i] = 48, 9
+            if i:
+                weight[at + i] = 10.0**place
+            else:
+                lead.append(10.0**place)
+            place += 1
+        low[at], span[at] = _PLUS, 57 - _PLUS  # a digit or a sign; see _fixed_width_block
+        first.append(at)
+        single.append(places == 1)
+        weights.append(weight)
+        scale.append(10.0**fraction)
+        p10.append(-fraction)
+        at += len(text)
+        if at < len(body):
+            low[at] = sep
+            at += 1
+    return _Layout(
+        width,
+        low,
+        span,
+        tuple(first),
+        tuple(single),
+        tuple(weights),
+        tuple(lead),
+        tuple(scale),
+        tuple(p10),
+    )
+
+
+def _fixed_width_block(
+    buf: np.ndarray,
+    lo: int,
+    hi: int,
+    sep: int,
+    ncols: int,
+    comma_decimal: bool,
+    layouts: dict[bytes, _Layout | None],
+    out: dict[int, np.ndarray],
+    p10_out: dict[int, np.ndarray],
+    row0: int,
+) -> int | None:
+    """Read buf[lo:hi] if it is a fixed-width block of plain decimals.
+
+    Writes the kept columns' values (and rounding exponents) from row
+    ``row0`` on and returns the number of lines; returns None, having
+    written nothing, when the block is anything else.
+    """
+    newline = buf[lo : min(hi, lo + 1024)].tobytes().find(b"\n")
+    if newline < 2 or (hi - lo) % (newline + 1):
+        return None
+    line = buf[lo : lo + newline + 1].tobytes()
+    key = line.translate(_DIGIT_PATTERN)
+    if key not in layouts:
+        layouts[key] = _line_layout(line, sep, ncols, comma_decimal)
+    layout = layouts[key]
+    if layout is None:
+        return None
+    lines = buf[lo:hi].reshape(-1, layout.width)
+    shifted = lines - layout.low  # uint8: below `low` wraps round to large values
+    if not (shifted <= layout.span).all():
+        return None
+    leads = []
+    for at, single in zip(layout.first, layout.single, strict=True):  # a loop over columns
+        byte = lines[:, at]
+        digit = byte - np.uint8(48)
+        is_digit = digit < 10
+        # The range test let through 43-57: only digits and the two signs are numbers.
+        fine = is_digit if single else is_digit | (byte == _MINUS) | (byte == _PLUS)
+        if not fine.all():
+            return None
+        leads.append((byte, digit, is_digit))
+    n = lines.shape[0]
+    places = shifted.astype(np.float64)  # each byte's digit value where a digit stands
+    for c, column in out.items():
+        byte, digit, is_digit = leads[c]
+        target = column[row0 : row0 + n]
+        np.matmul(places, layout.weights[c], out=target)
+        target += (digit * is_digit) * layout.lead[c]
+        target /= layout.scale[c]
+        np.negative(target, out=target, where=byte == _MINUS)
+    for c, column in p10_out.items():
+        column[row0 : row0 + n] = layout.p10[c]
+    return n
+
+
 def _parse_block(
     buf: np.ndarray,
     size: int,
@@ -1215,10 +1373,21 @@ def _parse_block(
     p10s = {c: np.empty(capacity, dtype=np.int16) for c in p10_for}
     want_p10 = bool(p10_for)
     general = False  # becomes True once a block needs the exponent-aware parser
+    layouts: dict[bytes, _Layout | None] = {}
     while lo < end:
         hi = _chunk_end(buf, lo, end, max_line_bytes, line0, name)
         if max_line_bytes < _CHUNK_BYTES:  # a limit below the block size: check each line
             _check_line_lengths(buf, lo, hi, max_line_bytes, line0, name)
+        if strict_sep is not None:
+            fixed = _fixed_width_block(
+                buf, lo, hi, strict_sep, ncols, comma_decimal, layouts, columns, p10s, rows
+            )
+            if fixed is not None:
+                chunks.append(_Chunk(lo, hi, line0, rows))
+                rows += fixed
+                line0 += fixed
+                lo = hi
+                continue
         if (buf[lo:hi] == ord("#")).any():
             _blank_comments(buf, lo, hi)
         n_lines = int(np.count_nonzero(buf[lo:hi] == _NL))
