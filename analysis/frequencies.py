@@ -48,11 +48,21 @@ _EXAMPLE = "e.g. 48 MHz, 96 MHz, 144.2 MHz"
 
 
 def parse_frequency(text: str) -> float:
-    """``25e6``, ``25MHz``, ``2.2 MHz``, ``125k`` → Hz. TraceError (a ValueError) with a clear message otherwise."""
-    m = _FREQ.match(text)
+    """``25e6``, ``25MHz``, ``2.2 MHz``, ``125k`` → Hz (finite, ≥ 0). TraceError (a ValueError) with a clear message otherwise."""
+    m = _FREQ.match(text) if isinstance(text, str) else None
     if not m:
-        raise TraceError(f"'{text}' is not a frequency (e.g. 25e6, 25MHz, 2.2 MHz)")
-    return float(m.group(1)) * _SI[m.group(2).lower()]
+        raise TraceError(
+            f"'{_printable(str(text))}' is not a frequency (e.g. 25e6, 25MHz, 2.2 MHz)"
+        )
+    value = float(m.group(1)) * _SI[m.group(2).lower()]
+    if not np.isfinite(value):
+        raise TraceError(f"'{_printable(text.strip())}' is too large to be a frequency")
+    return value
+
+
+def _printable(text: str) -> str:
+    # A typed control character (a NUL, say) is shown, not echoed.
+    return "".join(ch if ch.isprintable() else "?" for ch in text)
 
 
 def _unit_factor(unit: str | None) -> float:
@@ -71,7 +81,7 @@ def format_hz(value: float) -> str:
 
 
 def _not_a_frequency(text: str, i: int) -> None:
-    word = _WORD.match(text, i).group(0)
+    word = _printable(_WORD.match(text, i).group(0))
     raise TraceError(
         f"'{word}' (character {i + 1}) is not a frequency: write a number with an "
         f"optional unit, {_EXAMPLE}, or 48e6"
@@ -106,9 +116,11 @@ def parse_frequencies(
                 _not_a_frequency(text, j)
         value = float(m.group("number")) * _unit_factor(m.group("unit"))
         if not (lowest_hz <= value <= highest_hz):
-            hint = " — add a unit, e.g. MHz" if not m.group("unit") else ""
+            # A bare number below the band is most likely a frequency without its unit.
+            hint = " — add a unit, e.g. MHz" if not m.group("unit") and value < lowest_hz else ""
+            shown = format_hz(value) if np.isfinite(value) else "too large to be a frequency"
             raise TraceError(
-                f"'{m.group(0)}' (character {i + 1}) is {format_hz(value)}, outside "
+                f"'{_printable(m.group(0))}' (character {i + 1}) is {shown}, outside "
                 f"{format_hz(lowest_hz)} to {format_hz(highest_hz)}{hint}"
             )
         values.append(value)
@@ -139,9 +151,9 @@ def tolerance_from_percent(percent: float) -> Tolerance:
 
 
 def _relative(fraction: float, text: str, token: str) -> Tolerance:
-    if not (np.isfinite(fraction) and fraction > 0):
+    if not fraction > 0:
         raise TraceError(f"tolerance '{token}' must be above 0")
-    if fraction > MAX_RELATIVE_TOLERANCE:
+    if not fraction <= MAX_RELATIVE_TOLERANCE:  # an overflow to inf is wide too
         raise TraceError(
             f"tolerance '{token}' is wider than {MAX_RELATIVE_TOLERANCE * 100:g} %, "
             "which matches almost anything"
@@ -161,7 +173,7 @@ def parse_tolerance(text: str) -> Tolerance:
     """
     if not isinstance(text, str) or not text.strip():
         raise TraceError("no tolerance given: type e.g. 0.5 %, 50 ppm or 200 kHz")
-    token = text.strip()
+    token = _printable(text.strip())
     if m := _PERCENT.match(text):
         return _relative(float(m.group(1)) / 100.0, f"{float(m.group(1)):g} %", token)
     if m := _PPM.match(text):
