@@ -66,3 +66,12 @@ def test_it_times_each_endpoint_and_the_request_rate(report):
 def test_it_says_whose_servers_it_measured(report):
     assert report["setup"]["private_servers"] is True
     assert "tuned for tests" in report["setup"]["servers"]
+
+
+def test_it_splits_the_cores_used_between_the_stack_and_other_programs(report):
+    cores = report["measured"]["cores_by_part"]
+    if cores is None:  # only where /proc is missing
+        return
+    assert set(cores) == {"web", "workers", "redis", "postgres", "clients", "others"}
+    assert all(v >= 0 for v in cores.values())
+    assert cores["web"] > 0  # twelve requests were served

@@ -59,6 +59,8 @@ COUNTS = {"clients": 20, "uploads": 50}
 QUICK_COUNTS = {"clients": 4, "uploads": 5}
 MAX_COUNTS = {"clients": 100, "uploads": 500}
 POINTS = 1001
+# More than this much of a core used by other programs skews the figures (as in bench_pipeline).
+OTHERS_WARN_CORES = 0.15
 ENDPOINTS = ("POST /api/captures/", "GET /cases/<id>/", "GET /api/cases/<id>/")
 
 
@@ -96,6 +98,57 @@ def _busy_ticks() -> tuple[int, int] | None:
         return None
     idle = values[3] + (values[4] if len(values) > 4 else 0)
     return sum(values) - idle, sum(values)
+
+
+def _ticks_by_part(stack: Stack) -> dict[str, int] | None:
+    """CPU ticks used so far by each part of the stack and by everything else, from /proc; None without it.
+
+    Parts: the web server's and each worker's process groups, the PostgreSQL server (the
+    postmaster and its children; private cluster only), Redis (private only), this
+    process (the clients), and 'others' (the rest of the machine, from /proc/stat).
+    """
+    groups = {"web": {stack.web.popen.pid}, "workers": {w.popen.pid for w in stack.workers}}
+    if stack.redis is not None and stack.redis.process is not None:
+        groups["redis"] = {stack.redis.process.popen.pid}
+    postmaster = None
+    if stack.postgres is not None:
+        try:
+            postmaster = int((stack.postgres.data / "postmaster.pid").read_text().split()[0])
+        except (OSError, ValueError, IndexError):
+            pass
+    parts = dict.fromkeys([*groups, "postgres", "clients", "others"], 0)
+    try:
+        with open("/proc/stat") as fh:
+            values = [int(v) for v in fh.readline().split()[1:]]
+        busy = sum(values) - values[3] - (values[4] if len(values) > 4 else 0)
+        for entry in os.scandir("/proc"):
+            if not entry.name.isdigit():
+                continue
+            try:
+                with open(f"/proc/{entry.name}/stat") as fh:
+                    fields = fh.read().rsplit(")", 1)[1].split()
+            except OSError:
+                continue  # the process ended meanwhile
+            pid, ppid, pgrp = int(entry.name), int(fields[1]), int(fields[2])
+            ticks = int(fields[11]) + int(fields[12])  # utime + stime
+            part = next((name for name, ids in groups.items() if pgrp in ids), None)
+            if part is None and postmaster is not None and postmaster in (pid, ppid):
+                part = "postgres"
+            if part is None and pid == os.getpid():
+                part = "clients"
+            if part is not None:
+                parts[part] += ticks
+        parts["others"] = busy - sum(v for k, v in parts.items() if k != "others")
+    except (OSError, ValueError):
+        return None
+    return parts
+
+
+def _cores(before: dict | None, after: dict | None, wall: float) -> dict | None:
+    if not before or not after or wall <= 0:
+        return None
+    hz = os.sysconf("SC_CLK_TCK")
+    return {k: round(max(after[k] - before[k], 0) / hz / wall, 2) for k in after}
 
 
 def _percentiles_ms(values: list[float]) -> dict:
@@ -175,8 +228,8 @@ def measure(stack: Stack, counts: dict, timeout: float, log) -> dict:
     except threading.BrokenBarrierError:
         raise CommandError(f"a client could not start: {rec.errors}") from None
     log(f"{n_clients} clients uploading ...")
-    load_before, ticks_before = _load(), _busy_ticks()
-    cpu_before, t0 = os.times(), time.perf_counter()
+    load_before, ticks_before, parts_before = _load(), _busy_ticks(), _ticks_by_part(stack)
+    t0 = time.perf_counter()
     first_upload = time.time()
     deadline = time.monotonic() + max(600.0, 2.0 * n_clients * n_uploads)
     for t in threads:
@@ -184,7 +237,7 @@ def measure(stack: Stack, counts: dict, timeout: float, log) -> dict:
     if any(t.is_alive() for t in threads):
         raise CommandError("the clients did not finish in time")
     wall = time.perf_counter() - t0
-    cpu_after, ticks_after = os.times(), _busy_ticks()
+    ticks_after, parts_after = _busy_ticks(), _ticks_by_part(stack)
     if rec.errors:
         raise CommandError("; ".join(rec.errors))
 
@@ -240,7 +293,7 @@ def measure(stack: Stack, counts: dict, timeout: float, log) -> dict:
         "load_average_before": load_before,
         "load_average_after": _load(),
         "machine_cores_busy": cores,
-        "bench_client_cores": round((cpu_after.user + cpu_after.system - cpu_before.user - cpu_before.system) / wall, 2),
+        "cores_by_part": _cores(parts_before, parts_after, wall),
     }
 
 
@@ -254,10 +307,15 @@ def render(report: dict) -> str:
         f"DEBUG {'on' if s['debug'] else 'off'}",
         f"  {s['servers']}",
         f"  {report['machine']['cpus']} CPUs; load average (1/5/15 min) before {m['load_average_before']}, "
-        f"after {m['load_average_after']}; machine cores busy meanwhile {m['machine_cores_busy']} "
-        f"(of which the bench's clients {m['bench_client_cores']})",
+        f"after {m['load_average_after']}; cores busy while the clients ran: {m['machine_cores_busy']}",
         "",
         f"  {m['requests']} requests in {m['wall_s']:.1f} s: {m['requests_per_s']:.1f} requests/s",
+    ]
+    if m["cores_by_part"]:
+        lines.append("  cores used meanwhile: " + ", ".join(f"{k} {v:.2f}" for k, v in m["cores_by_part"].items())
+                     + (" (other programs were busy: every figure is skewed)"
+                        if m["cores_by_part"]["others"] > OTHERS_WARN_CORES else ""))
+    lines += [
         "",
         f"  {'endpoint':<24}{'n':>7}{'p50 ms':>10}{'p95 ms':>10}{'max ms':>10}{'errors':>8}",
     ]
