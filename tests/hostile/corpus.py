@@ -316,6 +316,9 @@ def _build() -> list[Hostile]:
         f"column {SCRIPT} states no level unit",
         1,
     )
+    for i, formula in enumerate(FORMULAS):  # = + - @ tab CR leads, as a level column's name
+        add(f"formula-{i}.csv", text([f"Frequency (MHz),{formula}", *rows()]),
+            f"column {formula.strip()} states no level unit", 1)  # fmt: skip
     add("img-field.csv", with_line(9, f"{IMG},20"), ("'\"><img'", NOT_A_NUMBER), 9)
     add(f"{IMG}.csv", with_line(9, "37.0,abc"), ("'abc'", NOT_A_NUMBER), 9)
     # --- guards, with a small configured limit so the test stays fast
