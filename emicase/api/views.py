@@ -8,6 +8,7 @@ their PermissionDenied a 403 (see ``errors.py``).
 
 from __future__ import annotations
 
+import json
 import re
 from collections.abc import Callable
 
@@ -25,7 +26,7 @@ from rest_framework.decorators import action
 from rest_framework.exceptions import APIException, ValidationError
 from rest_framework.parsers import MultiPartParser
 from rest_framework.permissions import IsAuthenticated
-from rest_framework.renderers import BaseRenderer
+from rest_framework.renderers import BaseRenderer, JSONRenderer
 from rest_framework.response import Response
 from rest_framework.views import APIView
 
@@ -383,7 +384,8 @@ class PassthroughRenderer(BaseRenderer):
     render_style = "binary"
 
     def render(self, data, accepted_media_type=None, renderer_context=None):
-        return data
+        # Only an error reaches a renderer here (the file itself is a FileResponse): keep its words.
+        return json.dumps(data).encode() if isinstance(data, dict | list) else data
 
 
 FILE_DOC = extend_schema(
@@ -407,7 +409,9 @@ class UploadViewSet(mixins.ListModelMixin, mixins.RetrieveModelMixin, ScopedView
         return queryset
 
     @FILE_DOC
-    @action(detail=True, methods=["get"], renderer_classes=[PassthroughRenderer])
+    # JSON first, so a refusal reads as every other API error does; a client that asks for the raw
+    # bytes alone (Accept: application/octet-stream) is served too.
+    @action(detail=True, methods=["get"], renderer_classes=[JSONRenderer, PassthroughRenderer])
     def file(self, request, pk=None):
         """The uploaded file itself, for members of its team only."""
         return upload_file_response(self.get_object(), by=request.user, request=request)

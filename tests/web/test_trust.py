@@ -198,8 +198,12 @@ def test_the_api_hands_out_the_file_to_members_only(scan, viewer, outsider):
     ok = api_client(viewer).get(f"/api/scans/{scan.pk}/file/", HTTP_ACCEPT="application/octet-stream")
     assert ok.status_code == 200
     assert b"".join(ok.streaming_content).startswith(receiver_csv([(75e6, 36.0)])[:40])
-    assert api_client(outsider).get(f"/api/scans/{scan.pk}/file/").status_code == 404
+    refused = api_client(outsider).get(f"/api/scans/{scan.pk}/file/")
+    assert refused.status_code == 404
+    assert refused["Content-Type"] == "application/json" and "detail" in refused.json()
     assert APIClient().get(f"/api/scans/{scan.pk}/file/").status_code == 401
+    raw = api_client(outsider).get(f"/api/scans/{scan.pk}/file/", HTTP_ACCEPT="application/octet-stream")
+    assert raw.status_code == 404 and b"detail" in raw.content
 
 
 def test_uploaded_files_have_no_public_url(scan, client, viewer):
