@@ -201,3 +201,17 @@ def test_the_api_returns_typed_html_as_data_not_markup(hostile, engineer):
     assert (
         response.json()["title"] == hostile["values"]["title"]
     )  # stored as typed; escaping is the page's job
+
+
+def test_a_hostile_file_name_is_quoted_in_the_download(client, hostile, engineer):
+    client.force_login(engineer)
+    response = client.get(reverse("scan_file", args=[hostile["scan"].pk]))
+    assert response.status_code == 200
+    disposition = response["Content-Disposition"]
+    # RFC 6266: a quoted-string with \" escapes, or an RFC 5987 filename*= form; never a bare quote
+    quoted = re.fullmatch(r'attachment; filename="((?:[^"\\]|\\.)*)"', disposition)
+    assert quoted or disposition.startswith("attachment; filename*=utf-8''"), disposition
+    if quoted:
+        assert re.sub(r"\\(.)", r"\1", quoted.group(1)) == hostile["values"]["scan_file"]
+    assert "\n" not in disposition and "\r" not in disposition
+    b"".join(response.streaming_content)
