@@ -27,6 +27,7 @@ def sweep_stuck(*, queued_after: timedelta = QUEUED_TIMEOUT, running_after: time
     """
     from emicase import tasks
     from emicase.services.analysis import STALE_AFTER
+    from emicase.services.uploads import send_analysis
 
     if running_after is None:
         running_after = STALE_AFTER
@@ -44,7 +45,9 @@ def sweep_stuck(*, queued_after: timedelta = QUEUED_TIMEOUT, running_after: time
                 status=AnalysisStatus.QUEUED, status_changed_at=now, claim_token=""
             )
             for pk in ids:
-                transaction.on_commit(lambda pk=pk, task=task: task.delay(pk))
+                # A broker still away leaves the row queued for the next sweep, and the
+                # other rows are still sent.
+                transaction.on_commit(lambda pk=pk, task=task: send_analysis(task, pk))
         counts[model.__name__.lower()] = len(ids)
     return counts
 

@@ -41,22 +41,28 @@ def check_trace_file(file: UploadedFile, *, domain: str) -> None:
         raise ValidationError({"file": f"{file.name} is not a text trace (it looks like a binary file)."})
 
 
+def send_analysis(task, pk: int) -> bool:
+    """Send ``task(pk)`` to the broker. False (and a warning) if the broker could not take it.
+
+    The stored row is the promise, not the message: a row whose message never left stays
+    'queued' and ``sweep_stuck`` sends it again, so an accepted upload is never lost, nor its
+    request failed, because Redis was restarting.
+    """
+    try:
+        task.delay(pk)
+    except Exception as exc:  # any broker or network error: the row is stored, it just waits
+        log.warning("%s %s stored but not queued (%s: %s); the sweeper will queue it",
+                    task.name.rsplit(".", 1)[-1], pk, type(exc).__name__, exc)
+        return False
+    return True
+
+
 def _enqueue(task_name: str, pk: int) -> None:
     """Queue the analysis once the row is committed; never fail the upload if the broker is away."""
     from emicase import tasks
 
     task = getattr(tasks, task_name)
-
-    def send() -> None:
-        try:
-            task.delay(pk)
-        except Exception as exc:  # any broker or network error: the row is stored, it just waits
-            # The stored row is the promise: it stays 'queued' and sweep_stuck sends it
-            # again, so an accepted upload is never lost because Redis was restarting.
-            log.warning("%s %s stored but not queued (%s: %s); the sweeper will queue it",
-                        task_name, pk, type(exc).__name__, exc)
-
-    transaction.on_commit(send)
+    transaction.on_commit(lambda: send_analysis(task, pk))
 
 
 @transaction.atomic

@@ -112,3 +112,28 @@ def test_the_throttle_lets_a_token_client_through_while_its_cache_is_away(api, c
 
     monkeypatch.setattr(TokenClientThrottle, "cache", CacheDown())
     assert api.get(f"/api/cases/{case.pk}/").status_code == 200
+
+
+def test_a_sweep_while_the_broker_is_down_keeps_the_rows_for_the_next_one(
+    case, revision, engineer, monkeypatch, caplog, django_capture_on_commit_callbacks
+):
+    from emicase.services import uploads
+
+    monkeypatch.setattr(uploads, "_enqueue", lambda name, pk: None)  # stored, never sent
+    rows = [uploads.capture_upload(case=case, revision=revision, by=engineer, probe_kind="h_field",
+                                   tip="loop 10 mm", location=f"U{i}",
+                                   file=SimpleUploadedFile(f"nf{i}.csv", receiver_csv([(75e6, 48.0)], points=201)))
+            for i in range(2)]
+    tried = []
+
+    def broker_down(pk):
+        tried.append(pk)
+        raise BrokerError("Connection refused")
+
+    monkeypatch.setattr(tasks.analyse_capture, "delay", broker_down)
+    with caplog.at_level(logging.WARNING, logger="emicase.uploads"), \
+            django_capture_on_commit_callbacks(execute=True):
+        assert sweep_stuck(queued_after=timedelta(0))["capture"] == 2  # no exception escapes
+    assert sorted(tried) == sorted(r.pk for r in rows)  # the first failure did not stop the second
+    assert set(Capture.objects.filter(pk__in=tried).values_list("status", flat=True)) == {AnalysisStatus.QUEUED}
+    assert caplog.text.count("stored but not queued") == 2

@@ -70,7 +70,10 @@ class Command(BaseCommand):
             next_sweep = time.monotonic()
             while not stop["now"] and all(c.poll() is None for c in children):
                 if time.monotonic() >= next_sweep:
-                    call_command("sweep_stuck", verbosity=0)
+                    try:
+                        call_command("sweep_stuck", verbosity=0)
+                    except Exception as exc:  # the database or broker is away: sweep next time
+                        self.stderr.write(f"sweep skipped ({type(exc).__name__}: {exc}); trying again later")
                     next_sweep = time.monotonic() + opts["sweep_every"]
                 time.sleep(0.5)
         finally:
