@@ -273,3 +273,29 @@ def test_an_endless_line_through_the_api_is_refused_at_line_1(engineer, busy_cas
         == "endless.csv line 1: the line is longer than 1048576 bytes; not a text trace"
     )
     assert snapshot(busy_case, leave_out=("capture", pk)) == before
+
+
+def test_hostile_traces_given_to_the_search_get_the_engines_words_beside_the_field(
+    client, engineer, busy_case
+):
+    client.force_login(engineer)
+    before = snapshot(busy_case)
+    for name in [*ANALYSED, *REFUSED]:
+        h = BY_NAME[name]
+        response = client.post(
+            reverse("search:similar"),
+            {"tolerance": "", "trace": SimpleUploadedFile(h.name, h.content)},
+        )
+        assert response.status_code == 200, name
+        errors = response.context["form"].errors.get("trace") or response.context[
+            "form"
+        ].errors.get("__all__")
+        assert errors and len(errors) == 1, (name, response.context["form"].errors)
+        if name in ANALYSED:
+            assert errors[0].startswith(h.prefix) and all(f in errors[0] for f in h.expect), errors[
+                0
+            ]
+        else:
+            _refused_message(h, errors[0])
+        assert escape(errors[0]) in response.content.decode()
+    assert snapshot(busy_case) == before  # a search stores nothing
