@@ -96,12 +96,6 @@ def _wait(predicate: Callable[[], bool], timeout: float, what: str, interval: fl
     raise StackError(f"timed out after {timeout:.0f} s waiting for {what}")
 
 
-def _port_open(port: int) -> bool:
-    with contextlib.suppress(OSError), socket.create_connection((LOOPBACK, port), timeout=0.5):
-        return True
-    return False
-
-
 def _die_with_parent() -> None:
     """In a child before exec: Linux sends it SIGTERM if this process dies without stopping it."""
     try:
@@ -502,7 +496,7 @@ class Stack:
         with psycopg.connect(self.database_url, connect_timeout=5) as conn:
             return conn.execute(sql, params).fetchall()
 
-    def captures(self, case_ids: list[int]) -> dict[str, dict]:
+    def captures(self, case_ids: list[int]) -> dict[str, list[dict]]:
         """Every capture on these cases by idempotency key: id, status, attempts, and how often it was stored.
 
         ``stored`` counts the case's 'analysed' events for the capture (written once in the
@@ -519,7 +513,7 @@ class Stack:
             """,
             (list(case_ids),),
         )
-        out: dict[str, dict] = {}
+        out: dict[str, list[dict]] = {}
         for pk, key, status, attempts, error, stored, readings in rows:
             out.setdefault(key, []).append(
                 {"id": pk, "status": status, "attempts": attempts, "error_text": error, "stored": stored,

@@ -103,9 +103,9 @@ def _busy_ticks() -> tuple[int, int] | None:
 def _ticks_by_part(stack: Stack) -> dict[str, int] | None:
     """CPU ticks used so far by each part of the stack and by everything else, from /proc; None without it.
 
-    Parts: the web server's and each worker's process groups, the PostgreSQL server (the
+    Parts: the web server's and the workers' process groups, the PostgreSQL server (the
     postmaster and its children; private cluster only), Redis (private only), this
-    process (the clients), and 'others' (the rest of the machine, from /proc/stat).
+    process (the clients), and 'others' (the rest of the machine's busy time, /proc/stat).
     """
     groups = {"web": {stack.web.popen.pid}, "workers": {w.popen.pid for w in stack.workers}}
     if stack.redis is not None and stack.redis.process is not None:
@@ -116,7 +116,8 @@ def _ticks_by_part(stack: Stack) -> dict[str, int] | None:
             postmaster = int((stack.postgres.data / "postmaster.pid").read_text().split()[0])
         except (OSError, ValueError, IndexError):
             pass
-    parts = dict.fromkeys([*groups, "postgres", "clients", "others"], 0)
+    # The machine's own servers (--use-machine-services) serve others too: they count as 'others'.
+    parts = dict.fromkeys([*groups, *(["postgres"] if postmaster else []), "clients", "others"], 0)
     try:
         with open("/proc/stat") as fh:
             values = [int(v) for v in fh.readline().split()[1:]]
