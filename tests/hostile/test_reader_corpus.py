@@ -117,3 +117,15 @@ def test_a_file_of_one_endless_line_on_disk_is_refused_at_line_1(tmp_path):
     path.write_bytes(b"5" * (3 << 20))  # 3 MiB, no line break
     err = _refusal(lambda: read_trace(path))
     assert str(err) == "blob.csv line 1: the line is longer than 1048576 bytes; not a text trace"
+
+
+def test_the_command_line_refuses_every_corpus_file_with_one_line_and_exit_2(tmp_path, capsys):
+    from analysis.__main__ import main
+
+    for case in (c for c in CORPUS if not c.kwargs):
+        path = tmp_path / case.name
+        path.write_bytes(case.content)
+        assert main([str(path)]) == 2, case.name
+        out, err = capsys.readouterr()
+        assert out == "" and err.count("\n") == 1 and err.startswith(case.prefix), (case.name, err)
+        path.unlink()
