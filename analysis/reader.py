@@ -1199,6 +1199,16 @@ def _csv_fields(
 # names the problem.
 
 _MAX_FIXED_DIGITS = 15
+# By the value of a field's first byte: may it start a number (a one-digit
+# field: must it be that digit), the digit it adds, and the sign it gives.
+_NUMBER_FIRST = np.zeros(256, dtype=bool)
+_NUMBER_FIRST[[_PLUS, _MINUS, *range(48, 58)]] = True
+_DIGIT_FIRST = np.zeros(256, dtype=bool)
+_DIGIT_FIRST[48:58] = True
+_FIRST_DIGIT = np.zeros(256)
+_FIRST_DIGIT[48:58] = np.arange(10.0)
+_FIRST_SIGN = np.ones(256)
+_FIRST_SIGN[_MINUS] = -1.0
 _DIGIT_PATTERN = bytes.maketrans(b"0123456789", b"0000000000")
 
 
@@ -1207,8 +1217,11 @@ class _Layout:
     """Where the fields of a fixed-width block sit (see _fixed_width_block)."""
 
     width: int  # bytes per line, newline included
-    low: np.ndarray  # per byte of a line: the lowest allowed value
-    span: np.ndarray  # ... and how far above it the allowed values reach
+    # Per byte of a line: the lowest allowed value and how far above it the
+    # allowed values reach, repeated for as many lines as a block can hold
+    # (whole-block operations on contiguous bytes, not a broadcast per line).
+    low: np.ndarray
+    span: np.ndarray
     first: tuple[int, ...]  # each field's first byte
     single: tuple[bool, ...]  # the field has one digit place: its first byte must be a digit
     weights: tuple[np.ndarray, ...]  # per field: 10 ** place of each digit after the first byte
@@ -1272,10 +1285,11 @@ def _line_layout(line: bytes, sep: int, ncols: int, comma_decimal: bool) -> _Lay
         if at < len(body):
             low[at] = sep
             at += 1
+    lines = _CHUNK_BYTES // width + 1
     return _Layout(
         width,
-        low,
-        span,
+        np.tile(low, lines),
+        np.tile(span, lines),
         tuple(first),
         tuple(single),
         tuple(weights),
@@ -1313,29 +1327,29 @@ def _fixed_width_block(
     layout = layouts[key]
     if layout is None:
         return None
-    lines = buf[lo:hi].reshape(-1, layout.width)
-    shifted = lines - layout.low  # uint8: below `low` wraps round to large values
-    if not (shifted <= layout.span).all():
+    block = buf[lo:hi]
+    if block.size > layout.low.size:
         return None
-    leads = []
+    shifted = block - layout.low[: block.size]  # uint8: below `low` wraps round to large values
+    if not (shifted <= layout.span[: block.size]).all():
+        return None
+    lines = block.reshape(-1, layout.width)
+    shifted = shifted.reshape(lines.shape)
     for at, single in zip(layout.first, layout.single, strict=True):  # a loop over columns
-        byte = lines[:, at]
-        digit = byte - np.uint8(48)
-        is_digit = digit < 10
-        # The range test let through 43-57: only digits and the two signs are numbers.
-        fine = is_digit if single else is_digit | (byte == _MINUS) | (byte == _PLUS)
-        if not fine.all():
+        # The range test let through 43-57 at a first byte: only digits and
+        # the two signs are numbers there (and only digits in a one-digit field).
+        if not (_DIGIT_FIRST if single else _NUMBER_FIRST)[lines[:, at]].all():
             return None
-        leads.append((byte, digit, is_digit))
     n = lines.shape[0]
     places = shifted.astype(np.float64)  # each byte's digit value where a digit stands
     for c, column in out.items():
-        byte, digit, is_digit = leads[c]
+        first = lines[:, layout.first[c]]
         target = column[row0 : row0 + n]
         np.matmul(places, layout.weights[c], out=target)
-        target += (digit * is_digit) * layout.lead[c]
-        target /= layout.scale[c]
-        np.negative(target, out=target, where=byte == _MINUS)
+        target += _FIRST_DIGIT[first] * layout.lead[c]
+        # ±10**fraction_digits: the one correctly rounded division, and the sign
+        # (x / −d is exactly −(x / d))
+        target /= _FIRST_SIGN[first] * layout.scale[c]
     for c, column in p10_out.items():
         column[row0 : row0 + n] = layout.p10[c]
     return n
