@@ -115,7 +115,8 @@ def find_families(
     # candidates their count, not their size, is what the search costs.
     while len(families) < max_families and f.size - np.count_nonzero(claimed) >= min_peaks:
         active = ~claimed
-        cells, cell_order = _match(candidates, f, tol, active, max_order)
+        reach = np.where(active, tol, -1.0)
+        cells, cell_order = _match(candidates, f, reach, max_order)
         # A candidate matching no unclaimed peak keeps its f0 through the
         # refinement (nothing to fit), so it matches nothing and cannot make a
         # family now, nor later, when fewer peaks are unclaimed: drop it.
@@ -130,10 +131,10 @@ def find_families(
         f0 = candidates
         for refinement in range(_REFINE_PASSES):
             if refinement > 0:
-                cells, cell_order = _match(f0, f, tol, active, max_order)
+                cells, cell_order = _match(f0, f, reach, max_order)
             kept = _best_comb(cells, cell_order, f0.size, cols)[0]
             f0 = _refine(f0, f, weight, cells[kept], cell_order[kept])
-        cells, cell_order = _match(f0, f, tol, active, max_order)
+        cells, cell_order = _match(f0, f, reach, max_order)
         kept, score, missing, highest, odd, count = _best_comb(cells, cell_order, f0.size, cols)
         expected = _chance_matches(f0, f, tol, active, highest, odd)
         p_chance = _poisson_sf(count - 1, expected)
@@ -209,24 +210,24 @@ def _candidates(f: np.ndarray, prominence_db: np.ndarray) -> np.ndarray:
 
 
 def _match(
-    f0: np.ndarray, f: np.ndarray, tol: np.ndarray, active: np.ndarray, max_order: int
+    f0: np.ndarray, f: np.ndarray, reach: np.ndarray, max_order: int
 ) -> tuple[np.ndarray, np.ndarray]:
     """The matched cells of the (candidate, peak) grid, one peak per order (the closest).
 
     Returns their flat indices (row-major, ascending) and their orders: peak f
     matches candidate f0 at order n = round(f/f0) when 1 ≤ n ≤ max_order and
-    |f − n·f0| ≤ its tolerance; of peaks sharing an order the closest is kept
-    (the first on exact ties).
+    |f − n·f0| ≤ its ``reach`` (its tolerance; −1 for a claimed peak, which
+    then matches nothing); of peaks sharing an order the closest is kept (the
+    first on exact ties).
     """
     orders = np.divide(f[None, :], f0[:, None])
     np.rint(orders, out=orders)  # whole numbers, so the tests below are exact
     deviation = orders * f0[:, None]
     np.subtract(f[None, :], deviation, out=deviation)
     np.abs(deviation, out=deviation)
-    ok = deviation <= tol
-    ok &= orders >= 1
-    ok &= orders <= max_order
-    ok &= active
+    ok = deviation <= reach
+    # 1 ≤ n ≤ max_order for whole n: |n − (max_order + 1)/2| ≤ (max_order − 1)/2
+    ok &= np.abs(orders - 0.5 * (max_order + 1)) <= 0.5 * (max_order - 1)
     cells = np.flatnonzero(ok)
     cell_order = orders.ravel()[cells].astype(np.int64)
     if cells.size < 2:
