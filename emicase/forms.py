@@ -137,6 +137,7 @@ class KeepsUpload(forms.Form):
 class ScanForm(KeepsUpload):
     file = forms.FileField(
         required=False,
+        allow_empty_file=True,  # refused by check_trace_file, in words that name the file
         label="Scan file",
         help_text="The receiver's or analyser's text export (.csv, .txt, …) with frequency and level columns.",
     )
@@ -299,6 +300,7 @@ class CaseScanForm(ScanForm):
 class CaptureForm(KeepsUpload):
     file = forms.FileField(
         required=False,
+        allow_empty_file=True,  # refused by check_trace_file, in words that name the file
         label="Capture file",
         help_text="A spectrum export or an oscilloscope time record (.csv, .txt, …).",
     )

@@ -163,6 +163,7 @@ class SearchForm(FiltersForm):
     )
     trace = forms.FileField(
         required=False,
+        allow_empty_file=True,  # refused by check_trace_file, in words that name the file
         label="…or a trace file",
         help_text="Analysed now and not stored; up to 20 MB. Spectrum or time record, as for uploads.",
     )

@@ -594,6 +594,8 @@ class TraceFileField(serializers.FileField):
 
     def __init__(self, **kwargs):
         kwargs.setdefault("max_length", 255)
+        # An empty file is refused by the upload service, in words that name the file.
+        kwargs.setdefault("allow_empty_file", True)
         kwargs.setdefault(
             "help_text", "The trace file as exported by the instrument (text: CSV or similar)."
         )

@@ -463,7 +463,7 @@ def test_a_repeated_idempotency_key_returns_the_stored_capture(world, engineer):
             "file",
             "photo.png is not a text trace (it looks like a binary file).",
         ),
-        ({"file": upload("empty.csv", b"")}, "file", "The submitted file is empty."),
+        ({"file": upload("empty.csv", b"")}, "file", "empty.csv is empty."),
         ({"x_mm": "10"}, "y_mm", "Give both x_mm and y_mm, or neither."),
         ({"probe_kind": "antenna"}, "probe_kind", '"antenna" is not a valid choice.'),
         ({"tip": ""}, "tip", "This field may not be blank."),
