@@ -75,3 +75,5 @@ def test_it_splits_the_cores_used_between_the_stack_and_other_programs(report):
     assert set(cores) == {"web", "workers", "redis", "postgres", "clients", "others"}
     assert all(v >= 0 for v in cores.values())
     assert cores["web"] > 0  # twelve requests were served
+    cpu = report["measured"]["cpu_ms"]
+    assert cpu["web_per_request"] > 0 and cpu["workers_per_analysis"] > 0

@@ -152,6 +152,15 @@ def _cores(before: dict | None, after: dict | None, wall: float) -> dict | None:
     return {k: round(max(after[k] - before[k], 0) / hz / wall, 2) for k in after}
 
 
+def _cpu_ms(before: dict | None, after: dict | None, done: dict | None, requests: int, analyses: int) -> dict | None:
+    """CPU ms of the web server per request (clients' phase) and of the workers per analysis (until the last)."""
+    if not before or not after or not done or not requests or not analyses:
+        return None
+    per_tick_ms = 1000 / os.sysconf("SC_CLK_TCK")
+    return {"web_per_request": round((after["web"] - before["web"]) * per_tick_ms / requests, 1),
+            "workers_per_analysis": round((done["workers"] - before["workers"]) * per_tick_ms / analyses, 1)}
+
+
 def _percentiles_ms(values: list[float]) -> dict:
     if not values:
         return {"n": 0, "p50_ms": None, "p95_ms": None, "max_ms": None}
@@ -256,6 +265,7 @@ def measure(stack: Stack, counts: dict, timeout: float, log) -> dict:
             w.check()
         time.sleep(0.5)
     finished = time.time()
+    parts_done = _ticks_by_part(stack)  # the workers' CPU counts until the last analysis
     timings = stack.query(
         "SELECT extract(epoch FROM analysis_finished_at - uploaded_at), extract(epoch FROM analysis_finished_at)"
         " FROM emicase_capture WHERE case_id = ANY(%s) AND status = 'done'", (cases,))
@@ -295,6 +305,8 @@ def measure(stack: Stack, counts: dict, timeout: float, log) -> dict:
         "load_average_after": _load(),
         "machine_cores_busy": cores,
         "cores_by_part": _cores(parts_before, parts_after, wall),
+        # CPU time per unit of work: the figure other programs on the machine change least.
+        "cpu_ms": _cpu_ms(parts_before, parts_after, parts_done, len(rec.rows), len(timings)),
     }
 
 
@@ -316,6 +328,9 @@ def render(report: dict) -> str:
         lines.append("  cores used meanwhile: " + ", ".join(f"{k} {v:.2f}" for k, v in m["cores_by_part"].items())
                      + (" (other programs were busy: every figure is skewed)"
                         if m["cores_by_part"]["others"] > OTHERS_WARN_CORES else ""))
+    if m.get("cpu_ms"):
+        lines.append(f"  CPU per request, web server: {m['cpu_ms']['web_per_request']:.1f} ms; per analysis, "
+                     f"workers: {m['cpu_ms']['workers_per_analysis']:.1f} ms")
     lines += [
         "",
         f"  {'endpoint':<24}{'n':>7}{'p50 ms':>10}{'p95 ms':>10}{'max ms':>10}{'errors':>8}",
@@ -324,6 +339,9 @@ def render(report: dict) -> str:
         def fmt(v):
             return f"{v:>10.1f}" if v is not None else f"{'-':>10}"
         lines.append(f"  {name:<24}{e['n']:>7}{fmt(e['p50_ms'])}{fmt(e['p95_ms'])}{fmt(e['max_ms'])}{e['errors']:>8}")
+    if m.get("cpu_ms"):
+        lines.append(f"  CPU per request, web server: {m['cpu_ms']['web_per_request']:.1f} ms; per analysis, "
+                     f"workers: {m['cpu_ms']['workers_per_analysis']:.1f} ms")
     lines += [
         "",
         f"  uploads: {up['sent']} sent, {up['accepted']} accepted, {up['refused']} refused"
