@@ -38,6 +38,7 @@ from __future__ import annotations
 import io
 import json
 import os
+import shutil
 import tempfile
 import threading
 import time
@@ -416,6 +417,9 @@ class Command(BaseCommand):
             raise CommandError(f"{exc}\nlogs under {root}") from None
         finally:
             stack.stop()
+            # The uploads and collected static files go; the servers' logs stay beside them.
+            for folder in ("var", "static"):
+                shutil.rmtree(root / folder, ignore_errors=True)
         report = {
             "machine": {"cpus": os.cpu_count()},
             "setup": {**counts, "web_workers": opts["web_workers"], "web_threads": opts["web_threads"],
