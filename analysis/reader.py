@@ -366,10 +366,20 @@ def _is_unit(text: str) -> bool:
     )
 
 
+_LABEL_CHARS = 60
+
+
+def _label_text(text: str) -> str:
+    """A header field as messages show it: printable, and at most about 60 characters
+    (its start and its end, where the unit is, kept)."""
+    text = "".join(ch if ch.isprintable() else "?" for ch in text)
+    return text if len(text) <= _LABEL_CHARS else text[:32] + "…" + text[-27:]
+
+
 def _describe(field_text: str) -> _Column:
     name, unit = _split_unit(field_text)
     low = name.lower()
-    label = field_text.strip() or "(unnamed)"
+    label = _label_text(field_text.strip()) or "(unnamed)"
     if any(w in low for w in _LIMIT_WORDS):
         return _Column(label, "limit", unit)
     if unit is not None:
@@ -657,7 +667,7 @@ def _no_broken_rows(
     for index, f in enumerate(fields):
         if not _NUMBER.fullmatch(f) or (sep == "," and "," in f):
             where = (
-                header[index]
+                _label_text(header[index])
                 if header and index < len(header) and header[index]
                 else str(index + 1)
             )
@@ -1008,7 +1018,7 @@ class _Table:
 
     def column_label(self, index: int) -> str:
         if self.header and index < len(self.header) and self.header[index]:
-            return self.header[index]
+            return _label_text(self.header[index])
         return str(index + 1)
 
     def lines_of_rows(self, rows: np.ndarray) -> np.ndarray:
@@ -1542,7 +1552,7 @@ def _raise_first(
         column = bad_token - first_on_line
         token = _shown(buf[starts[bad_token] : ends[bad_token]].tobytes(), head.encoding)
         if column < ncols and head.header and column < len(head.header) and head.header[column]:
-            where = f"column {head.header[column]}"
+            where = f"column {_label_text(head.header[column])}"
         else:
             where = f"column {column + 1}"
         what = f"'{token}' is not a number in {where}"
@@ -1922,7 +1932,9 @@ def _read_trace(
     )
     warnings: list[str] = []
     if head.ncols > 2:
-        ignored = [_column(head, i).label for i in range(head.ncols) if i not in (x, y)]
+        ignored = [_column(head, i).label for i in range(head.ncols) if i not in (x, y)][:6]
+        if head.ncols - 2 > 5:  # a file of thousands of columns gets one short line too
+            ignored[5:] = [f"and {head.ncols - 7} more"]
         warnings.append(f"used columns {xcol.label} and {ycol.label}; ignored {', '.join(ignored)}")
     if chosen == SPECTRUM:
         scale = _axis_scale(

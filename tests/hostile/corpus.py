@@ -321,6 +321,13 @@ def _build() -> list[Hostile]:
             f"column {formula.strip()} states no level unit", 1)  # fmt: skip
     add("img-field.csv", with_line(9, f"{IMG},20"), ("'\"><img'", NOT_A_NUMBER), 9)
     add(f"{IMG}.csv", with_line(9, "37.0,abc"), ("'abc'", NOT_A_NUMBER), 9)
+    # --- labels that would flood a message: 100 kB long, or terminal escapes
+    add("long-label.csv", text([f"Frequency (MHz),{'L' * 100_000}", *rows()]),
+        (f"column {'L' * 32}…{'L' * 27} states no level unit"), 1)  # fmt: skip
+    add("long-label-bad-row.csv", with_line(7, "35.0,abc", header=f"Frequency (MHz),{'Level' * 1000} (dBuV)"),
+        ("'abc' is not a number in column LevelLevel", "…", "Level (dBuV)"), 7)  # fmt: skip
+    add("escape-label.csv", text(["Frequency (MHz),Level \x1b[2J\x1b[31m", *rows()]),
+        "column Level ?[2J?[31m states no level unit", 1)  # fmt: skip
     # --- guards, with a small configured limit so the test stays fast
     add(
         "long-line.csv",
@@ -364,6 +371,18 @@ def _accepted() -> list[Awkward]:
             N,
         ),
         Awkward("dos-eof.csv", good() + b"\x1a", None, N),
+        # thousands of columns: one short warning, not a list of them all
+        Awkward(
+            "wide.csv",
+            text(
+                [
+                    ",".join(["Frequency (MHz)", *(f"Level{i} (dBuV)" for i in range(5000))]),
+                    *(",".join([f"{30 + i}", *["1"] * 5000]) for i in range(20)),
+                ]
+            ),
+            "ignored Level1 (dBuV), Level2 (dBuV), Level3 (dBuV), Level4 (dBuV), Level5 (dBuV), and 4994 more",
+            20,
+        ),
     ]
 
 

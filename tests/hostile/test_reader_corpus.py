@@ -58,6 +58,7 @@ def test_a_path_is_refused_the_same_way(case, tmp_path):
 def test_awkward_but_valid_files_read(case):
     trace = read_trace(case.content, name=case.name)
     assert len(trace.data) == case.points
+    assert all(len(w) < 300 and w.isprintable() for w in trace.warnings), trace.warnings
     if case.warning is None:
         assert trace.warnings == ()
     else:
