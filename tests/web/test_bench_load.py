@@ -77,3 +77,16 @@ def test_it_splits_the_cores_used_between_the_stack_and_other_programs(report):
     assert cores["web"] > 0  # twelve requests were served
     cpu = report["measured"]["cpu_ms"]
     assert cpu["web_per_request"] > 0 and cpu["workers_per_analysis"] > 0
+
+
+def test_the_text_report_shows_each_line_once(report):
+    from emicase.management.commands.bench_load import render
+
+    text = render(report)
+    lines = ["requests in", "uploads: 4 sent, 4 accepted, 0 refused, 4 analysed", "lost uploads: 0 — MET"]
+    if report["measured"]["cpu_ms"]:  # None only where /proc is missing
+        lines.append("CPU per request")
+    for line in lines:
+        assert text.count(line) == 1, text
+    for endpoint in report["measured"]["endpoints"]:
+        assert text.count(endpoint) == 1, text

@@ -340,9 +340,6 @@ def render(report: dict) -> str:
         def fmt(v):
             return f"{v:>10.1f}" if v is not None else f"{'-':>10}"
         lines.append(f"  {name:<24}{e['n']:>7}{fmt(e['p50_ms'])}{fmt(e['p95_ms'])}{fmt(e['max_ms'])}{e['errors']:>8}")
-    if m.get("cpu_ms"):
-        lines.append(f"  CPU per request, web server: {m['cpu_ms']['web_per_request']:.1f} ms; per analysis, "
-                     f"workers: {m['cpu_ms']['workers_per_analysis']:.1f} ms")
     lines += [
         "",
         f"  uploads: {up['sent']} sent, {up['accepted']} accepted, {up['refused']} refused"
