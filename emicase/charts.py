@@ -13,6 +13,7 @@ headless browser or an old lab PC may have none.
 
 from __future__ import annotations
 
+import html
 from collections.abc import Iterable, Sequence
 
 import numpy as np
@@ -166,6 +167,17 @@ def _limit_traces(fig: go.Figure, limit: LimitLine, guard_db: float) -> None:
     )
 
 
+def _plain(text: str) -> str:
+    """User text for a chart label: plotly renders a few HTML tags in labels, so show them as text
+    (plotly decodes the entities back to the characters typed)."""
+    return html.escape(str(text), quote=False)
+
+
+def _plain_template(text: str) -> str:
+    """User text inside a hovertemplate, where ``%{`` would start a placeholder."""
+    return _plain(text).replace("%{", "% {")
+
+
 def attribution_label(attribution: dict | None) -> str:
     """'3 × PHY clock', 'PHY clock + 2 × buck': an attribution's terms in words."""
     if not attribution:
@@ -209,7 +221,7 @@ def scan_figure(
             x=x,
             y=y,
             mode="lines",
-            name=name,
+            name=_plain(name),
             line=dict(color=TRACE, width=1.2),
             hovertemplate="%{x:.3f} MHz, %{y:.1f}<extra></extra>",
         )
@@ -225,7 +237,7 @@ def scan_figure(
                 mode="markers",
                 name="Peaks",
                 marker=dict(symbol="circle-open", size=7, color=INK),
-                text=[lab or "no known source" for lab in labels],
+                text=[_plain(lab) or "no known source" for lab in labels],
                 hovertemplate="%{x:.3f} MHz, %{y:.1f}: %{text}<extra>peak</extra>",
             )
         )
@@ -236,7 +248,7 @@ def scan_figure(
             fig.add_annotation(
                 x=float(np.log10(p["frequency_hz"] / 1e6)),
                 y=round(p["level"], 2),
-                text=attribution_label(by_f[round(p["frequency_hz"], 0)]),
+                text=_plain(attribution_label(by_f[round(p["frequency_hz"], 0)])),
                 showarrow=True,
                 arrowhead=0,
                 arrowcolor="#6b6b6b",
@@ -291,9 +303,9 @@ def overlay_figure(
                 x=x,
                 y=y,
                 mode="lines",
-                name=label,
+                name=_plain(label),
                 line=dict(width=1.2, color=SERIES[i % len(SERIES)]),
-                hovertemplate=f"{label}<br>%{{x:.3f}} MHz, %{{y:.1f}}<extra></extra>",
+                hovertemplate=f"{_plain_template(label)}<br>%{{x:.3f}} MHz, %{{y:.1f}}<extra></extra>",
             )
         )
     if marker_hz:
@@ -340,9 +352,9 @@ def before_after_figure(
                 x=x,
                 y=y,
                 mode="lines",
-                name=label,
+                name=_plain(label),
                 line=dict(color=color, width=width),
-                hovertemplate=f"{label}<br>%{{x:.3f}} MHz, %{{y:.1f}}<extra></extra>",
+                hovertemplate=f"{_plain_template(label)}<br>%{{x:.3f}} MHz, %{{y:.1f}}<extra></extra>",
             )
         )
     if failing:
@@ -394,7 +406,7 @@ def board_map_figure(group, *, frequency_hz: float) -> go.Figure:
                 x=_f32([loc.x_mm for loc in placed]),
                 y=_f32([loc.y_mm for loc in placed]),
                 mode="markers+text",
-                text=[loc.location for loc in placed],
+                text=[_plain(loc.location) for loc in placed],
                 textposition="top center",
                 marker=dict(
                     size=22,
@@ -427,7 +439,7 @@ def board_map_figure(group, *, frequency_hz: float) -> go.Figure:
         xaxis=dict(title=dict(text="x (mm)"), constrain="domain"),
         yaxis=dict(title=dict(text="y (mm)"), scaleanchor="x", scaleratio=1),
         title=dict(
-            text=f"{group.probe_label}, {group.tip} at {frequency_hz / 1e6:.3f} MHz",
+            text=_plain(f"{group.probe_label}, {group.tip} at {frequency_hz / 1e6:.3f} MHz"),
             font=dict(size=13),
         ),
     )
