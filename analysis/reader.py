@@ -1195,22 +1195,25 @@ def _csv_fields(
 
 # --- fixed-width blocks ------------------------------------------------------------
 #
-# Most exports print every value of a column with one format ("%.3f"), so the
-# lines of a block are often all the same length with every field at the same
-# place: the block is a (lines, width) byte matrix. Such a block is checked
-# with one range test per byte position (digits where line 1 has a digit, the
-# separator, the decimal mark and the line end where it has those; a digit or
-# a sign at each field's first byte) and each column's digits are combined in
-# one matrix-vector product with their powers of ten: with at most 15 digits
-# every product and partial sum is an integer below 2**53, so the mantissa is
-# exact in any order of summation, and the value is then the same single
-# correctly rounded division by 10**fraction_digits as in _parse_plain. Any
-# block that fails a test goes through the general parse, which finds and
-# names the problem.
+# Most exports print every value of a column with one format ("%.3f",
+# "%.6e"), so the lines of a block are often all the same length with every
+# field at the same place: the block is a (lines, width) byte matrix. Such a
+# block is checked with one range test per byte position (digits where line 1
+# has a digit; the separator, the decimal mark, the exponent mark and the line
+# end where it has those; a digit or a sign at each field's first byte and a
+# sign at an exponent's) and each column's digits are combined in one
+# matrix-vector product with their powers of ten: with at most 15 digits every
+# product and partial sum is an integer below 2**53, so the mantissa is exact
+# in any order of summation. The value is then the same single correctly
+# rounded operation as in _parse_plain (a division by 10**fraction_digits) or
+# _parse_general (mantissa · _MUL / _DIV for an exponent). Any block that
+# fails a test goes through the general parse, which finds and names the
+# problem.
 
 _MAX_FIXED_DIGITS = 15
 # By the value of a field's first byte: may it start a number (a one-digit
-# field: must it be that digit), the digit it adds, and the sign it gives.
+# field: must it be that digit), the digit it adds, and the sign it gives;
+# and may a byte be an exponent's sign.
 _NUMBER_FIRST = np.zeros(256, dtype=bool)
 _NUMBER_FIRST[[_PLUS, _MINUS, *range(48, 58)]] = True
 _DIGIT_FIRST = np.zeros(256, dtype=bool)
@@ -1219,7 +1222,29 @@ _FIRST_DIGIT = np.zeros(256)
 _FIRST_DIGIT[48:58] = np.arange(10.0)
 _FIRST_SIGN = np.ones(256)
 _FIRST_SIGN[_MINUS] = -1.0
+_SIGN_BYTE = np.zeros(256, dtype=bool)
+_SIGN_BYTE[[_PLUS, _MINUS]] = True
 _DIGIT_PATTERN = bytes.maketrans(b"0123456789", b"0000000000")
+_EXPONENT_MARKS = (69, 101)  # E, e
+
+
+@dataclass(frozen=True, eq=False)
+class _FieldLayout:
+    first: int  # the field's first byte, counted from the line's start
+    single: bool  # one digit place: the first byte must be a digit
+    weights: np.ndarray  # per byte of a line: 10 ** place of each mantissa digit but the first
+    lead: float  # 10 ** place of the first byte
+    fraction: int  # digits after the decimal mark
+    exponent: np.ndarray | None  # per byte: 10 ** place of each exponent digit; None: none
+    exponent_sign: int  # the exponent's sign byte, −1 if it has none
+    # By the value of the first byte: the digit it adds times `lead`, and
+    # ±10 ** fraction (the sign it gives, and the divisor when no exponent).
+    first_value: np.ndarray
+    first_divisor: np.ndarray
+    # `weights` with `lead` at the first byte: for a column of unsigned
+    # numbers, whose first byte's place then holds its digit + 5 (see
+    # _fixed_width_block).
+    unsigned_weights: np.ndarray
 
 
 @dataclass(frozen=True, eq=False)
@@ -1232,22 +1257,18 @@ class _Layout:
     # (whole-block operations on contiguous bytes, not a broadcast per line).
     low: np.ndarray
     span: np.ndarray
-    first: tuple[int, ...]  # each field's first byte
-    single: tuple[bool, ...]  # the field has one digit place: its first byte must be a digit
-    weights: tuple[np.ndarray, ...]  # per field: 10 ** place of each digit after the first byte
-    lead: tuple[float, ...]  # per field: 10 ** place of the first byte
-    scale: tuple[float, ...]  # per field: 10 ** digits after the mark
-    p10: tuple[int, ...]  # per field: −(digits after the mark)
+    fields: tuple[_FieldLayout, ...]
 
 
 def _line_layout(line: bytes, sep: int, ncols: int, comma_decimal: bool) -> _Layout | None:
-    """The layout of ``line`` (newline included) if it is plain decimals, else None."""
+    """The layout of ``line`` (newline included) if its fields are
+    ``[sign] digits [mark digits] [e [sign] 1-3 digits]``, else None."""
     body = line[:-1]
     cr = body.endswith(b"\r")
     if cr:
         body = body[:-1]
-    fields = body.split(bytes([sep]))
-    if len(fields) != ncols:
+    texts = body.split(bytes([sep]))
+    if len(texts) != ncols:
         return None
     width = len(line)
     low = np.zeros(width, dtype=np.uint8)
@@ -1256,57 +1277,77 @@ def _line_layout(line: bytes, sep: int, ncols: int, comma_decimal: bool) -> _Lay
     if cr:
         low[-2] = _CR
     marks = (_DOT, _COMMA) if comma_decimal else (_DOT,)
-    first, single, weights, lead, scale, p10 = [], [], [], [], [], []
+    fields = []
     at = 0
-    for text in fields:
-        if not text:
+    for text in texts:  # a loop over the fields of one line
+        e_at = [i for i, ch in enumerate(text) if ch in _EXPONENT_MARKS]
+        if len(e_at) > 1:
             return None
-        mark = [i for i, ch in enumerate(text) if ch in marks]
-        places = len(text) - len(mark)
+        number = text[: e_at[0]] if e_at else text
+        if not number:
+            return None
+        mark = [i for i, ch in enumerate(number) if ch in marks]
+        places = len(number) - len(mark)
         if len(mark) > 1 or places > _MAX_FIXED_DIGITS or (mark and mark[0] == 0):
             return None
-        signed = text[0] in (_PLUS, _MINUS)
+        signed = number[0] in (_PLUS, _MINUS)
         if signed and places == 1:
             return None  # a sign and no digit
-        if not all(48 <= ch <= 57 for i, ch in enumerate(text) if i and i not in mark):
+        if not (signed or 48 <= number[0] <= 57):
             return None
-        if not (signed or 48 <= text[0] <= 57):
+        if not all(48 <= ch <= 57 for i, ch in enumerate(number) if i and i not in mark):
             return None
-        fraction = len(text) - 1 - mark[0] if mark else 0
-        weight = np.zeros(width)
+        weights = np.zeros(width)
+        lead = 1.0
         place = 0
-        for i in range(len(text) - 1, -1, -1):  # a loop over the bytes of one line
+        for i in range(len(number) - 1, -1, -1):  # a loop over the bytes of one field
             if i in mark:
-                low[at + i] = text[i]
+                low[at + i] = number[i]
                 continue
             low[at + i], span[at + i] = 48, 9
             if i:
-                weight[at + i] = 10.0**place
+                weights[at + i] = 10.0**place
             else:
-                lead.append(10.0**place)
+                lead = 10.0**place
             place += 1
         low[at], span[at] = _PLUS, 57 - _PLUS  # a digit or a sign; see _fixed_width_block
-        first.append(at)
-        single.append(places == 1)
-        weights.append(weight)
-        scale.append(10.0**fraction)
-        p10.append(-fraction)
+        fraction = len(number) - 1 - mark[0] if mark else 0
+        exponent, exponent_sign = None, -1
+        if e_at:
+            e = e_at[0]
+            power = text[e + 1 :]
+            power_signed = power[:1] in (b"+", b"-")
+            digits = power[1:] if power_signed else power
+            if not (1 <= len(digits) <= 3 and all(48 <= ch <= 57 for ch in digits)):
+                return None
+            low[at + e] = text[e]
+            if power_signed:
+                exponent_sign = at + e + 1
+                low[exponent_sign], span[exponent_sign] = _PLUS, _MINUS - _PLUS
+            exponent = np.zeros(width)
+            for place, i in enumerate(range(len(text) - 1, len(text) - 1 - len(digits), -1)):
+                low[at + i], span[at + i] = 48, 9
+                exponent[at + i] = 10.0**place
+        fields.append(
+            _FieldLayout(
+                first=at,
+                single=places == 1,
+                weights=weights,
+                lead=lead,
+                fraction=fraction,
+                exponent=exponent,
+                exponent_sign=exponent_sign,
+                first_value=_FIRST_DIGIT * lead,
+                first_divisor=_FIRST_SIGN * (1.0 if e_at else 10.0**fraction),
+                unsigned_weights=np.where(np.arange(width) == at, lead, weights),
+            )
+        )
         at += len(text)
         if at < len(body):
             low[at] = sep
             at += 1
     lines = _CHUNK_BYTES // width + 1
-    return _Layout(
-        width,
-        np.tile(low, lines),
-        np.tile(span, lines),
-        tuple(first),
-        tuple(single),
-        tuple(weights),
-        tuple(lead),
-        tuple(scale),
-        tuple(p10),
-    )
+    return _Layout(width, np.tile(low, lines), np.tile(span, lines), tuple(fields))
 
 
 def _fixed_width_block(
@@ -1320,12 +1361,16 @@ def _fixed_width_block(
     out: dict[int, np.ndarray],
     p10_out: dict[int, np.ndarray],
     row0: int,
-) -> int | None:
-    """Read buf[lo:hi] if it is a fixed-width block of plain decimals.
+    general: bool,
+) -> tuple[int, bool] | None:
+    """Read buf[lo:hi] if it is a fixed-width block of numbers (see above).
 
     Writes the kept columns' values (and rounding exponents) from row
-    ``row0`` on and returns the number of lines; returns None, having
-    written nothing, when the block is anything else.
+    ``row0`` on and returns the number of lines and whether later blocks
+    take _parse_block's exponent-aware parser; returns None, having written
+    nothing, when the block is anything else. ``general`` says whether they
+    already do: it decides, as there, whether an exponent field's rounding
+    exponent is known (see _parse_block).
     """
     newline = buf[lo : min(hi, lo + 1024)].tobytes().find(b"\n")
     if newline < 2 or (hi - lo) % (newline + 1):
@@ -1345,24 +1390,67 @@ def _fixed_width_block(
         return None
     lines = block.reshape(-1, layout.width)
     shifted = shifted.reshape(lines.shape)
-    for at, single in zip(layout.first, layout.single, strict=True):  # a loop over columns
+    unsigned = []
+    for spec in layout.fields:  # a loop over columns
         # The range test let through 43-57 at a first byte: only digits and
-        # the two signs are numbers there (and only digits in a one-digit field).
-        if not (_DIGIT_FIRST if single else _NUMBER_FIRST)[lines[:, at]].all():
+        # the two signs are numbers there (and only digits in a one-digit
+        # field); and 43-45 at an exponent's sign.
+        first = lines[:, spec.first]
+        unsigned.append(bool((first >= 48).all()))  # digits only: the usual case
+        if not unsigned[-1] and (spec.single or not _NUMBER_FIRST[first].all()):
+            return None
+        if spec.exponent_sign >= 0 and not _SIGN_BYTE[lines[:, spec.exponent_sign]].all():
             return None
     n = lines.shape[0]
     places = shifted.astype(np.float64)  # each byte's digit value where a digit stands
+    # Powers of ten first: beyond ±22 a block is the general parse's (_redo_hard).
+    powers: dict[int, np.ndarray | int] = {}
+    for c in {*out, *p10_out}:
+        spec = layout.fields[c]
+        if spec.exponent is None:
+            powers[c] = -spec.fraction
+            continue
+        exponent = places @ spec.exponent
+        if spec.exponent_sign >= 0:
+            exponent *= _FIRST_SIGN[lines[:, spec.exponent_sign]]
+        exponent -= spec.fraction
+        if np.abs(exponent).max() > 22:
+            return None
+        powers[c] = exponent
+    # _parse_block reads a block with the exponent-aware parser once one has
+    # needed it: when more than 1 field in 16 fails the plain parse. The
+    # plain parse gives other fields with an exponent an unknown rounding.
+    with_exponent = sum(spec.exponent is not None for spec in layout.fields)
+    general = general or with_exponent * 16 > ncols
     for c, column in out.items():
-        first = lines[:, layout.first[c]]
+        spec = layout.fields[c]
         target = column[row0 : row0 + n]
-        np.matmul(places, layout.weights[c], out=target)
-        target += _FIRST_DIGIT[first] * layout.lead[c]
-        # ±10**fraction_digits: the one correctly rounded division, and the sign
-        # (x / −d is exactly −(x / d))
-        target /= _FIRST_SIGN[first] * layout.scale[c]
+        if unsigned[c]:
+            # The first byte's place holds its digit + 5 (its low is '+', 43):
+            # the sum stays below 15·lead ≤ 1.5e15 < 2**53, so this is exact.
+            np.matmul(places, spec.unsigned_weights, out=target)
+            target -= 5.0 * spec.lead
+            divisor: np.ndarray | float = spec.first_divisor[_PLUS]  # 10 ** fraction (or 1)
+        else:
+            first = lines[:, spec.first]
+            np.matmul(places, spec.weights, out=target)
+            target += spec.first_value[first]
+            divisor = spec.first_divisor[first]
+        # One correctly rounded operation, as in _parse_plain / _parse_general,
+        # and the sign with it (x / −d is exactly −(x / d)).
+        if spec.exponent is None:
+            target /= divisor
+        else:
+            at = powers[c].astype(np.intp) + 22
+            target *= _MUL[at]
+            target /= divisor * _DIV[at]
     for c, column in p10_out.items():
-        column[row0 : row0 + n] = layout.p10[c]
-    return n
+        spec = layout.fields[c]
+        if spec.exponent is not None and not general:
+            column[row0 : row0 + n] = _P10_UNKNOWN
+        else:
+            column[row0 : row0 + n] = powers[c]
+    return n, general
 
 
 def _parse_block(
@@ -1404,12 +1492,13 @@ def _parse_block(
             _check_line_lengths(buf, lo, hi, max_line_bytes, line0, name)
         if strict_sep is not None:
             fixed = _fixed_width_block(
-                buf, lo, hi, strict_sep, ncols, comma_decimal, layouts, columns, p10s, rows
+                buf, lo, hi, strict_sep, ncols, comma_decimal, layouts, columns, p10s, rows, general
             )
             if fixed is not None:
+                n_fixed, general = fixed
                 chunks.append(_Chunk(lo, hi, line0, rows))
-                rows += fixed
-                line0 += fixed
+                rows += n_fixed
+                line0 += n_fixed
                 lo = hi
                 continue
         if (buf[lo:hi] == ord("#")).any():

@@ -72,3 +72,27 @@ def test_a_time_record_in_fixed_width_blocks_reads_as_float_does():
     # reference: Python's float() of each field as written
     np.testing.assert_array_equal(trace.data.time_s, [float(t) for t in time_s])
     np.testing.assert_array_equal(trace.data.volts, [float(v) for v in volts])
+
+
+@pytest.mark.parametrize("power", ["e", "E"])
+def test_exponent_notation_in_fixed_width_blocks_reads_as_float_does(power):
+    rng = np.random.default_rng(13)
+    frequency = [f"{150e3 + 997.0 * i:.6{power}}" for i in range(ROWS)]  # "1.500000e+05"
+    level = [f"{v:+.4{power}}" for v in rng.uniform(-99, 99, ROWS)]  # "+3.1416e+01"
+    level[3] = f"{1.5e-7:+.4{power}}"  # a negative power of ten
+    body = "\n".join(f"{f};{v}" for f, v in zip(frequency, level, strict=True))
+    trace = read_trace(f"Frequency (Hz);Level (dBuV)\n{body}\n".encode(), name="exp.csv")
+    # reference: Python's float() of each field as written
+    np.testing.assert_array_equal(trace.data.frequency_hz, [float(f) for f in frequency])
+    np.testing.assert_array_equal(trace.data.level, [float(v) for v in level])
+
+
+def test_a_time_record_in_exponent_notation_reads_as_float_does():
+    rows = 20_000
+    time_s = [f"{(i + 1) * 1e-6:.6e}" for i in range(rows)]  # "1.000000e-06"
+    volts = [f"{0.5 * (i % 3) - 0.5:+.3e}" for i in range(rows)]
+    body = "\n".join(f"{t},{v}" for t, v in zip(time_s, volts, strict=True))
+    trace = read_trace(f"Time (s),Voltage (V)\n{body}\n".encode(), name="scope.csv")
+    # reference: Python's float() of each field as written
+    np.testing.assert_array_equal(trace.data.time_s, [float(t) for t in time_s])
+    np.testing.assert_array_equal(trace.data.volts, [float(v) for v in volts])
