@@ -172,3 +172,20 @@ class SignatureRowAdmin(admin.ModelAdmin):
     list_display = ["id", "case", "role", "frequency_hz", "emission_kind", "outcome"]
     list_filter = ["role", "outcome", "emission_kind"]
     raw_id_fields = ["item", "case", "team", "product"]
+
+
+# The audit log is append-only: the admin reads it, never adds, edits or deletes a line.
+@admin.register(models.AuditEvent)
+class AuditEventAdmin(admin.ModelAdmin):
+    list_display = ["at", "team", "actor_name", "verb", "text", "remote_addr"]
+    list_filter = ["verb", "team"]
+    list_select_related = ["team"]
+
+    def has_add_permission(self, request):
+        return False
+
+    def has_change_permission(self, request, obj=None):
+        return False
+
+    def has_delete_permission(self, request, obj=None):
+        return False
