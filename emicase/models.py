@@ -652,10 +652,19 @@ class SignatureRow(models.Model):
     class Meta:
         indexes = [
             # Frequency first for the range scans; team, outcome and case after
-            # it so the default search (visibility only) reads the index alone.
-            models.Index(fields=["frequency_hz", "team", "outcome", "case"], name="signature_row_frequency"),
-            # A case's rows in scoring order, read from the index alone.
-            models.Index(fields=["case", "item", "role", "frequency_hz"], name="signature_row_case"),
+            # it (the scans' order), then every other column a filter tests, so
+            # a search reads the index alone whatever its filters. (With the
+            # emission kind outside it, PostgreSQL read table pages: one
+            # 22-range query at 100,000 cases took 106 ms filtered, 16 ms not.)
+            models.Index(
+                fields=["frequency_hz", "team", "outcome", "case", "emission_kind", "product", "opened_on"],
+                name="signature_row_by_frequency",
+            ),
+            # A case's rows in scoring order, with the emission kind its filter
+            # tests: read from the index alone.
+            models.Index(
+                fields=["case", "item", "role", "frequency_hz", "emission_kind"], name="signature_row_by_case"
+            ),
         ]
         constraints = [
             models.CheckConstraint(condition=Q(frequency_hz__gt=0), name="signature_row_frequency_positive"),
