@@ -132,7 +132,7 @@ def find_families(
         for refinement in range(_REFINE_PASSES):
             if refinement > 0:
                 cells, cell_order = _match(f0, f, reach, max_order)
-            kept = _best_comb(cells, cell_order, f0.size, cols)[0]
+            kept = _best_comb(cells, cell_order, f0.size, cols, stats=False)[0]
             f0 = _refine(f0, f, weight, cells[kept], cell_order[kept])
         cells, cell_order = _match(f0, f, reach, max_order)
         kept, score, missing, highest, odd, count = _best_comb(cells, cell_order, f0.size, cols)
@@ -141,7 +141,7 @@ def find_families(
         valid = (count >= min_peaks) & (missing <= count) & (p_chance <= false_alarm)
         if not valid.any():
             break
-        idx = np.flatnonzero(valid)
+        idx = valid.nonzero()[0]
         # Best score, ties to the higher fundamental (the simpler comb).
         best = idx[np.lexsort((-f0[idx], -score[idx]))[0]]
         kept_cells, kept_order = cells[kept], cell_order[kept]
@@ -228,7 +228,7 @@ def _match(
     ok = deviation <= reach
     # 1 ≤ n ≤ max_order for whole n: |n − (max_order + 1)/2| ≤ (max_order − 1)/2
     ok &= np.abs(orders - 0.5 * (max_order + 1)) <= 0.5 * (max_order - 1)
-    cells = np.flatnonzero(ok)
+    cells = ok.ravel().nonzero()[0]
     cell_order = orders.ravel()[cells].astype(np.int64)
     if cells.size < 2:
         return cells, cell_order
@@ -246,7 +246,7 @@ def _match(
         return cells, cell_order
     run_id = np.cumsum(run_start) - 1
     dev = deviation.ravel()[cells]
-    closest = np.flatnonzero(dev == np.minimum.reduceat(dev, np.flatnonzero(run_start))[run_id])
+    closest = (dev == np.minimum.reduceat(dev, run_start.nonzero()[0])[run_id]).nonzero()[0]
     closest_run = run_id[closest]
     first = np.empty(closest.size, dtype=bool)
     first[0] = True
@@ -270,15 +270,15 @@ def _refine(
     n[cells] = orders
     n = n.reshape(f0.size, f.size)
     weighted = weight * n
-    denominator = np.sum(weighted * n, axis=1)
-    numerator = np.sum(weighted * f, axis=1)
+    denominator = (weighted * n).sum(axis=1)
+    numerator = (weighted * f).sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.where(denominator > 0, numerator / denominator, f0)
 
 
 def _best_comb(
-    cells: np.ndarray, cell_order: np.ndarray, rows: int, cols: int
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    cells: np.ndarray, cell_order: np.ndarray, rows: int, cols: int, *, stats: bool = True
+) -> tuple[np.ndarray, ...]:
     """The simplest comb inside each candidate's matches.
 
     Two readings are scored: all matched orders, or the odd ones only (a stray
@@ -290,15 +290,17 @@ def _best_comb(
     of holes. ``cells`` (ascending flat indices into the rows × cols grid)
     and ``cell_order`` are _match's. Returns which cells are kept and, per
     row, the score, the missing count, the highest kept order, whether the
-    comb is odd-only and how many cells it keeps.
+    comb is odd-only and how many cells it keeps. Without ``stats`` (the
+    refinement passes need only the cells), just ``(kept,)``.
     """
     # A row's matches are a contiguous segment of the cells, so counts along
     # a row are ranks within its segment and per-row maxima a reduceat. Both
     # readings go through at once: the odd-only reading's cells follow the
     # others, as rows numbered from `rows` on.
     cell_row = cells // cols
+    cell_col = cells - cell_row * cols
     cell_odd = cell_order % 2 == 1
-    odd_cells = np.flatnonzero(cell_odd)
+    odd_cells = cell_odd.nonzero()[0]
     total = cells.size + odd_cells.size
     best_score = np.full(rows, -np.inf)
     best_cut = np.full(rows, -1)
@@ -310,7 +312,7 @@ def _best_comb(
         new_row = np.empty(total, dtype=bool)
         new_row[0] = True
         np.not_equal(row[1:], row[:-1], out=new_row[1:])
-        segment = np.flatnonzero(new_row)
+        segment = new_row.nonzero()[0]
         segment_id = np.cumsum(new_row) - 1
         count = np.arange(1, total + 1) - segment[segment_id]
         span = order - order[segment][segment_id]
@@ -318,12 +320,12 @@ def _best_comb(
         score = count - _GAP_PENALTY * (possible - count)
         row_best = np.maximum.reduceat(score, segment)
         # Ties go to the longer comb: more peaks explained for the same score.
-        at_best = np.flatnonzero(score == row_best[segment_id])
+        at_best = (score == row_best[segment_id]).nonzero()[0]
         best_id = segment_id[at_best]
         last_of_row = np.empty(at_best.size, dtype=bool)
         last_of_row[-1] = True
         np.not_equal(best_id[1:], best_id[:-1], out=last_of_row[:-1])
-        cut = cells[chosen[at_best[last_of_row]]] % cols
+        cut = cell_col[chosen[at_best[last_of_row]]]
         segment_row = row[segment]
         # The all-orders reading first; the odd-only one where strictly better.
         plain = segment_row < rows
@@ -336,9 +338,11 @@ def _best_comb(
         best_score[odd_row[better]] = odd_best[better]
         best_cut[odd_row[better]] = cut[odd][better]
         best_odd[odd_row[better]] = True
-    has = best_cut >= 0
-    kept = cells % cols <= best_cut[cell_row]
+    kept = cell_col <= best_cut[cell_row]
     kept &= ~best_odd[cell_row] | cell_odd
+    if not stats:
+        return (kept,)
+    has = best_cut >= 0
     kept_row = cell_row[kept]
     count = np.bincount(kept_row, minlength=rows)
     # Orders do not decrease along a row (f is sorted): a row's highest kept
@@ -357,7 +361,7 @@ def _best_comb(
 def _poisson_sf(k: np.ndarray, mu: np.ndarray) -> np.ndarray:
     """scipy.stats.poisson.sf(k, mu) for whole numbers k, without its per-call
     argument handling: P(X > k), 1 for k < 0, NaN for a negative or NaN mean."""
-    out = np.clip(special.pdtrc(np.maximum(k, 0).astype(float), mu), 0.0, 1.0)
+    out = np.minimum(np.maximum(special.pdtrc(np.maximum(k, 0).astype(float), mu), 0.0), 1.0)
     out[k < 0] = 1.0
     out[~(mu >= 0)] = np.nan
     return out
@@ -376,7 +380,7 @@ def _chance_matches(
     inside = active[None, :] & (f[None, :] <= (highest[:, None] + 0.5) * f0[:, None])
     slots = np.where(odd_only, 1.0, 2.0)[:, None]
     p = np.minimum(1.0, slots * tol[None, :] / f0[:, None])
-    return np.sum(np.where(inside, p, 0.0), axis=1)
+    return np.where(inside, p, 0.0).sum(axis=1)
 
 
 def _is_spread(

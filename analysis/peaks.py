@@ -241,7 +241,7 @@ def _statistical_threshold(
 
 def _fractional_frequency(frequency_hz: np.ndarray, position: np.ndarray) -> np.ndarray:
     """Frequency at fractional indices, interpolated between neighbours."""
-    base = np.clip(np.floor(position).astype(np.intp), 0, frequency_hz.size - 2)
+    base = np.minimum(np.maximum(np.floor(position).astype(np.intp), 0), frequency_hz.size - 2)
     fraction = position - base
     return frequency_hz[base] + fraction * (frequency_hz[base + 1] - frequency_hz[base])
 
@@ -262,16 +262,16 @@ def _candidates(
     padded = np.concatenate((model.median[:1], model.median, model.median[-1:]))
     lowest_floor = np.minimum(np.minimum(padded[:-2], padded[1:-1]), padded[2:])
     bound = lowest_floor + threshold_db
-    hot = np.flatnonzero(bucket_max >= bound)
+    hot = (bucket_max >= bound).nonzero()[0]
     if hot.size == 0:
         return np.empty(0, dtype=np.intp)
-    # Per hot bucket (a loop over buckets, not points): the points above the
-    # bucket's bound, then the exact floor at those few.
-    pieces = [
-        model.starts[b] + np.flatnonzero(level[model.starts[b] : model.stops[b]] >= bound[b])
-        for b in hot
-    ]
-    index = np.concatenate(pieces)
+    # The points of the hot buckets (in one gather, not one slice per bucket)
+    # that reach their bucket's bound, then the exact floor at those few.
+    lengths = model.stops[hot] - model.starts[hot]
+    ends = np.cumsum(lengths)
+    shift = np.repeat(model.starts[hot] - (ends - lengths), lengths)
+    index = np.arange(int(ends[-1])) + shift
+    index = index[level[index] >= np.repeat(bound[hot], lengths)]
     above = level[index] >= _floor_at(model, frequency_hz, index) + threshold_db
     return index[above]
 
@@ -313,7 +313,7 @@ def _topography(
     # The stretches left out: between neighbourhoods, and before the first
     # and after the last. Each becomes one point: its lowest level, clipped
     # at the lower floor of its two ends.
-    gap_after = np.flatnonzero(np.diff(neighbourhood) > 1)
+    gap_after = (np.diff(neighbourhood) > 1).nonzero()[0]
     gap_start = neighbourhood[gap_after] + 1
     gap_stop = neighbourhood[gap_after + 1]
     gap_floor = np.minimum(floor[gap_after], floor[gap_after + 1])
@@ -329,8 +329,19 @@ def _topography(
         gap_floor = np.append(gap_floor, floor[-1])
         positions = np.append(positions, neighbourhood.size)
     gap_value = np.maximum(_stretch_minima(level, gap_start, gap_stop), gap_floor)
-    compressed = np.insert(clipped, positions, gap_value)
-    origin = np.insert(neighbourhood, positions, -1)
+    # np.insert(clipped, positions, gap_value) and np.insert(neighbourhood,
+    # positions, -1), without its argument handling: positions increase
+    # strictly, so inserted value i lands at positions[i] + i.
+    total = clipped.size + positions.size
+    inserted = positions + np.arange(positions.size)
+    kept = np.ones(total, dtype=bool)
+    kept[inserted] = False
+    compressed = np.empty(total)
+    compressed[kept] = clipped
+    compressed[inserted] = gap_value
+    origin = np.empty(total, dtype=neighbourhood.dtype)
+    origin[kept] = neighbourhood
+    origin[inserted] = -1
 
     maxima, _ = scipy.signal.find_peaks(compressed)
     maxima = maxima[origin[maxima] >= 0]
@@ -392,7 +403,7 @@ def _width_round(
     columns = np.arange(offsets.size)
     position = index[:, None] + offsets[None, :]
     inside = (position >= 0) & (position < n)
-    values = level[np.clip(position, 0, n - 1)]
+    values = level[np.minimum(np.maximum(position, 0), n - 1)]
     ref = reference[:, None]
     above = inside & (values > ref)
     previous_above = np.maximum.accumulate(np.where(above, columns, -1), axis=1)
@@ -414,8 +425,12 @@ def _width_round(
     lb_value, lb_next = values[rows, lb], values[rows, np.minimum(lb + 1, offsets.size - 1)]
     rb_value, rb_prev = values[rows, rb], values[rows, np.maximum(rb - 1, 0)]
     with np.errstate(divide="ignore", invalid="ignore"):
-        left_fraction = np.clip((reference - lb_value) / (lb_next - lb_value), 0.0, 1.0)
-        right_fraction = np.clip((reference - rb_value) / (rb_prev - rb_value), 0.0, 1.0)
+        left_fraction = np.minimum(
+            np.maximum((reference - lb_value) / (lb_next - lb_value), 0.0), 1.0
+        )
+        right_fraction = np.minimum(
+            np.maximum((reference - rb_value) / (rb_prev - rb_value), 0.0), 1.0
+        )
     left_position = np.where(
         (left_break >= 0) & inside[rows, lb],
         position[rows, lb] + left_fraction,
