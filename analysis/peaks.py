@@ -246,6 +246,10 @@ def _fractional_frequency(frequency_hz: np.ndarray, position: np.ndarray) -> np.
     return frequency_hz[base] + fraction * (frequency_hz[base + 1] - frequency_hz[base])
 
 
+# Up to this many points in hot buckets, _candidates gathers them at once.
+_GATHER_POINTS = 65_536
+
+
 def _candidates(
     frequency_hz: np.ndarray, level: np.ndarray, model: _FloorModel, threshold_db: float
 ) -> np.ndarray:
@@ -265,13 +269,24 @@ def _candidates(
     hot = (bucket_max >= bound).nonzero()[0]
     if hot.size == 0:
         return np.empty(0, dtype=np.intp)
-    # The points of the hot buckets (in one gather, not one slice per bucket)
-    # that reach their bucket's bound, then the exact floor at those few.
+    # The points of the hot buckets that reach their bucket's bound, then the
+    # exact floor at those few. Few hot points (a receiver trace): one gather
+    # over all hot buckets, as per-bucket calls would cost more than the
+    # comparisons; many (an FFT spectrum): one slice per hot bucket (a loop
+    # over buckets, not points), which does not copy the points first.
     lengths = model.stops[hot] - model.starts[hot]
     ends = np.cumsum(lengths)
-    shift = np.repeat(model.starts[hot] - (ends - lengths), lengths)
-    index = np.arange(int(ends[-1])) + shift
-    index = index[level[index] >= np.repeat(bound[hot], lengths)]
+    if ends[-1] <= _GATHER_POINTS:
+        shift = np.repeat(model.starts[hot] - (ends - lengths), lengths)
+        index = np.arange(int(ends[-1])) + shift
+        index = index[level[index] >= np.repeat(bound[hot], lengths)]
+    else:
+        index = np.concatenate(
+            [
+                model.starts[b] + (level[model.starts[b] : model.stops[b]] >= bound[b]).nonzero()[0]
+                for b in hot
+            ]
+        )
     above = level[index] >= _floor_at(model, frequency_hz, index) + threshold_db
     return index[above]
 
