@@ -131,6 +131,10 @@ def find_families(
         f0 = candidates
         for refinement in range(_REFINE_PASSES):
             if refinement > 0:
+                # Candidates refined from the same matches now share their f0
+                # exactly, and everything from here on depends on f0 alone:
+                # keep one of each (ties between them are ties in everything).
+                f0 = np.unique(f0)
                 cells, cell_order = _match(f0, f, reach, max_order)
             kept = _best_comb(cells, cell_order, f0.size, cols, stats=False)[0]
             f0 = _refine(f0, f, weight, cells[kept], cell_order[kept])
@@ -267,13 +271,14 @@ def _refine(
     high-order match drag f0.
     """
     n = np.zeros(f0.size * f.size)
-    n[cells] = orders
+    n[cells] = orders.astype(np.float64)
     n = n.reshape(f0.size, f.size)
     weighted = weight * n
-    denominator = (weighted * n).sum(axis=1)
-    numerator = (weighted * f).sum(axis=1)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return np.where(denominator > 0, numerator / denominator, f0)
+    denominator = np.multiply(weighted, n, out=n).sum(axis=1)
+    numerator = np.multiply(weighted, f, out=weighted).sum(axis=1)
+    refined = f0.copy()
+    np.divide(numerator, denominator, out=refined, where=denominator > 0)
+    return refined
 
 
 def _best_comb(
@@ -299,11 +304,13 @@ def _best_comb(
     # others, as rows numbered from `rows` on.
     cell_row = cells // cols
     cell_col = cells - cell_row * cols
-    cell_odd = cell_order % 2 == 1
+    cell_odd = (cell_order & 1) == 1  # orders are ≥ 1
     odd_cells = cell_odd.nonzero()[0]
     total = cells.size + odd_cells.size
-    best_score = np.full(rows, -np.inf)
-    best_cut = np.full(rows, -1)
+    best_score = np.empty(rows)
+    best_score.fill(-np.inf)
+    best_cut = np.empty(rows, dtype=np.intp)
+    best_cut.fill(-1)
     best_odd = np.zeros(rows, dtype=bool)
     if total:
         chosen = np.concatenate((np.arange(cells.size), odd_cells))
@@ -313,10 +320,14 @@ def _best_comb(
         new_row[0] = True
         np.not_equal(row[1:], row[:-1], out=new_row[1:])
         segment = new_row.nonzero()[0]
-        segment_id = np.cumsum(new_row) - 1
+        segment_id = new_row.cumsum(dtype=np.intp)
+        segment_id -= 1
         count = np.arange(1, total + 1) - segment[segment_id]
         span = order - order[segment][segment_id]
-        possible = np.where(row >= rows, span // 2 + 1, span + 1)
+        # Orders in the span: all of them, or (the odd-only reading's cells,
+        # from cells.size on) every other one; spans are ≥ 0.
+        possible = span + 1
+        possible[cells.size :] = (span[cells.size :] >> 1) + 1
         score = count - _GAP_PENALTY * (possible - count)
         row_best = np.maximum.reduceat(score, segment)
         # Ties go to the longer comb: more peaks explained for the same score.
@@ -380,7 +391,8 @@ def _chance_matches(
     inside = active[None, :] & (f[None, :] <= (highest[:, None] + 0.5) * f0[:, None])
     slots = np.where(odd_only, 1.0, 2.0)[:, None]
     p = np.minimum(1.0, slots * tol[None, :] / f0[:, None])
-    return np.where(inside, p, 0.0).sum(axis=1)
+    p[~inside] = 0.0
+    return p.sum(axis=1)
 
 
 def _is_spread(
