@@ -102,11 +102,19 @@ def _bucket_bounds(frequency_hz: np.ndarray, min_points: int) -> np.ndarray:
     lo, hi = math.log10(frequency_hz[0]), math.log10(frequency_hz[-1])
     k = max(1, math.ceil((hi - lo) / _BUCKET_DECADES))
     inner = np.searchsorted(frequency_hz, 10.0 ** (lo + _BUCKET_DECADES * np.arange(1, k)))
-    edges = np.unique(np.concatenate(([0], inner, [n])))
+    edges = _distinct_sorted(np.concatenate(([0], inner, [n])))
     coordinate = np.concatenate(([0.0], np.cumsum(np.minimum(1.0, np.diff(edges) / min_points))))
     buckets = max(1, int(coordinate[-1] + 1e-9))
     cuts = np.interp(np.linspace(0.0, coordinate[-1], buckets + 1), coordinate, edges)
-    return np.unique(np.rint(cuts).astype(np.intp))
+    return _distinct_sorted(np.rint(cuts).astype(np.intp))
+
+
+def _distinct_sorted(values: np.ndarray) -> np.ndarray:
+    """np.unique of an already non-decreasing array: its first of each run."""
+    first = np.empty(values.size, dtype=bool)
+    first[:1] = True
+    np.not_equal(values[1:], values[:-1], out=first[1:])
+    return values[first]
 
 
 def _bucket_medians(
@@ -159,10 +167,24 @@ def _floor_model(
         deviation = np.concatenate(
             [np.abs(v - m[:, None]).ravel() for v, m in zip(samples, rows_median, strict=True)]
         )
-        spread_db = _MAD_TO_SIGMA * float(np.median(deviation[np.isfinite(deviation)]))
+        spread_db = _MAD_TO_SIGMA * _median_in_place(deviation[np.isfinite(deviation)])
     log_f = np.log10(frequency_hz[np.concatenate((starts, stops - 1))])
     centre = 0.5 * (log_f[: starts.size] + log_f[starts.size :])
     return _FloorModel(starts, stops, centre, median, spread_db)
+
+
+def _median_in_place(values: np.ndarray) -> float:
+    """np.median of a 1-D array without NaN (the same value: the middle one,
+    or the mean of the middle two), partitioning ``values`` in place instead
+    of a copy; NaN for an empty one."""
+    if values.size == 0:
+        return math.nan
+    half = values.size // 2
+    if values.size % 2:
+        values.partition(half)
+        return float(values[half])
+    values.partition([half - 1, half])
+    return float((values[half - 1] + values[half]) / 2.0)
 
 
 def _floor_at(model: _FloorModel, frequency_hz: np.ndarray, index: np.ndarray) -> np.ndarray:
