@@ -115,7 +115,8 @@ def bucket_starts(
             j = nearest[near]
             edge = 10.0 ** (lo + (hi - lo) * j / n_buckets)
             count[near] = j - 1 + ((j >= 1) & (j <= n_buckets - 1) & (edge <= values[near]))
-        return np.clip(count, 0, n_buckets - 1, out=count)
+        np.maximum(count, 0, out=count)  # np.clip(count, 0, n_buckets − 1), without its wrapper
+        return np.minimum(count, n_buckets - 1, out=count)
 
     def count_for(n_buckets: int) -> int:
         head_size = dense_from - n_positive_from
@@ -141,8 +142,8 @@ def bucket_starts(
         return 1 + int(inner[0] != n_positive_from) + int(np.count_nonzero(np.diff(inner)))
 
     def starts_for(n_buckets: int) -> np.ndarray:
-        starts = np.r_[n_positive_from, inner_starts(n_buckets)]
-        return starts[np.r_[True, starts[1:] != starts[:-1]]]
+        starts = np.concatenate(([n_positive_from], inner_starts(n_buckets)))
+        return starts[_run_starts(starts)]
 
     # The non-empty count grows (nearly monotonically) with the bucket count;
     # bisect for the largest count that stays within the budget. Only counts
@@ -158,7 +159,7 @@ def bucket_starts(
                 low = best_buckets = mid
             else:
                 high = mid
-    return np.r_[head, starts_for(best_buckets)].astype(np.int64)
+    return np.concatenate((head, starts_for(best_buckets))).astype(np.int64)
 
 
 def _check(x: ArrayLike, y: ArrayLike, max_points: int) -> tuple[np.ndarray, np.ndarray, float]:
@@ -213,7 +214,7 @@ def _extreme_indices(
 ) -> np.ndarray:
     """Indices of each bucket's first minimum and first maximum, in order
     (``extremes``: each bucket's minimum and maximum)."""
-    lengths = np.diff(np.r_[starts, y.size])
+    lengths = np.diff(starts, append=y.size)
     # Samples equal to their bucket's extreme, looked for in runs of whole
     # buckets of about _STEP_BLOCK samples, so that the per-sample work stays
     # in cache.
@@ -224,14 +225,23 @@ def _extreme_indices(
         b = int(starts[g1]) if g1 < starts.size else y.size
         for found, extreme in zip(hits, extremes, strict=True):
             expected = np.repeat(extreme[g0:g1], lengths[g0:g1])
-            found.append(a + np.flatnonzero(y[a:b] == expected))
+            found.append(a + (y[a:b] == expected).nonzero()[0])
     positions = []
     for found in hits:
         at = np.concatenate(found)
         bucket = np.searchsorted(starts, at, side="right") - 1
         # Hits ascend, so do their buckets: a bucket's first hit is where
         # the bucket number changes.
-        positions.append(at[np.r_[True, bucket[1:] != bucket[:-1]]])
+        positions.append(at[_run_starts(bucket)])
     both = np.sort(np.column_stack(positions), axis=1).ravel()
     # A bucket whose min and max are one sample yields it once.
-    return both[np.r_[True, both[1:] != both[:-1]]]
+    return both[_run_starts(both)]
+
+
+def _run_starts(values: np.ndarray) -> np.ndarray:
+    """Where each run of equal values begins (np.r_[True, v[1:] != v[:-1]],
+    without np.r_'s parsing)."""
+    first = np.empty(values.size, dtype=bool)
+    first[:1] = True
+    np.not_equal(values[1:], values[:-1], out=first[1:])
+    return first

@@ -97,6 +97,17 @@ def _cos_grid(n: int, count: int) -> np.ndarray:
     return grid.ravel()[:count]
 
 
+@functools.cache
+def _power_basis(window: str) -> np.ndarray:
+    """The window's cosine sum Σ_m (−1)^m a_m cos(mθ) as a polynomial in
+    cos θ (power-basis coefficients, lowest first), by the Chebyshev identity
+    cos(mθ) = T_m(cos θ). The same for every length, so computed once."""
+    signed = [(-1) ** m * a for m, a in enumerate(_check_window(window))]
+    basis = chebyshev.cheb2poly(signed)
+    basis.flags.writeable = False
+    return basis
+
+
 def _half_window(window: str, n: int) -> np.ndarray:
     """Samples w[0] … w[n//2] of the periodic window; the rest mirror them.
 
@@ -108,8 +119,7 @@ def _half_window(window: str, n: int) -> np.ndarray:
     half = n // 2 + 1
     if len(coefficients) == 1:
         return np.full(half, coefficients[0])
-    signed = [(-1) ** m * a for m, a in enumerate(coefficients)]
-    power_basis = chebyshev.cheb2poly(signed)
+    power_basis = _power_basis(window)
     c = _cos_grid(n, half)
     w = c * power_basis[-1]
     w += power_basis[-2]
@@ -135,10 +145,9 @@ def _apply_window(volts: np.ndarray, window: str) -> tuple[np.ndarray, float, fl
     w[k] and its mirror image w[n − k].
     """
     n = volts.size
-    coefficients = _check_window(window)
+    _check_window(window)
     half = n // 2 + 1
-    signed = [(-1) ** m * a for m, a in enumerate(coefficients)]
-    power_basis = chebyshev.cheb2poly(signed)
+    power_basis = _power_basis(window)
     grid_block = max(1, math.isqrt(half - 1) + 1)
     grid_rows = -(-half // grid_block)
     step = 2.0 * np.pi / n
@@ -379,7 +388,8 @@ def amplitude_spectrum(
         block *= to_uv_rms
         if b == level.size and n % 2 == 0:
             block[-1] /= math.sqrt(2.0)
-        np.maximum(block, _FLOOR_UV, out=block)
+        if block.min() < _FLOOR_UV:  # a read is cheaper than rewriting every bin
+            np.maximum(block, _FLOOR_UV, out=block)
         np.log10(block, out=block)
         block *= 20.0
         # Bin k's frequency is k·Δf, k counted exactly in float64.

@@ -677,8 +677,9 @@ def find_peaks(
 
     if spectrum.from_fft:
         enbw_bins = None
+        bin_hz = 0.5 * _median_in_place(step_hz.copy())
         if spectrum.rbw_hz is not None:
-            enbw_bins = spectrum.rbw_hz / (0.5 * float(np.median(step_hz)))
+            enbw_bins = spectrum.rbw_hz / bin_hz
         peak_frequency, peak_level = _refine(
             frequency_hz, level, index, floor, right_position - left_position, enbw_bins
         )
@@ -687,7 +688,7 @@ def find_peaks(
                 frequency_hz[index],
                 peak_frequency,
                 peak_level,
-                0.5 * float(np.median(step_hz)),
+                bin_hz,
                 enbw_bins,
             )
             keep = ~leaked
