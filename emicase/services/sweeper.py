@@ -1,16 +1,23 @@
-"""Re-queue uploads that a crash left behind.
+"""Re-queue uploads that a crash left behind; delete form uploads nobody came back for.
 
 The serverless broker takes a message off its queue when a worker fetches it,
 not when the task finishes, and even Redis can lose a message in a restart;
 so the database row is the truth and this sweep puts rows stuck in 'queued'
 or 'running' back on the queue. It is safe to run any time: the task claims
 its row, so a duplicate message does nothing.
+
+A page form that fails for a reason other than its file keeps the file under
+``kept/`` for the next try (``forms.KeepsUpload``). A session holds at most a
+handful, but an abandoned session's files would stay forever, so files there
+older than ``KEPT_FOR`` are deleted; a later try on such a form asks for the
+file again.
 """
 
 from __future__ import annotations
 
 from datetime import timedelta
 
+from django.core.files.storage import default_storage
 from django.db import transaction
 from django.db.models import Q
 from django.utils import timezone
@@ -18,6 +25,8 @@ from django.utils import timezone
 from emicase.models import AnalysisStatus, Capture, Scan
 
 QUEUED_TIMEOUT = timedelta(minutes=5)
+KEPT_FOR = timedelta(days=1)
+KEPT_DIRECTORY = "kept"
 
 
 def sweep_stuck(*, queued_after: timedelta = QUEUED_TIMEOUT, running_after: timedelta | None = None) -> dict[str, int]:
@@ -50,6 +59,25 @@ def sweep_stuck(*, queued_after: timedelta = QUEUED_TIMEOUT, running_after: time
                 transaction.on_commit(lambda pk=pk, task=task: send_analysis(task, pk))
         counts[model.__name__.lower()] = len(ids)
     return counts
+
+
+def sweep_kept_uploads(*, older_than: timedelta = KEPT_FOR) -> int:
+    """Delete kept form uploads last written more than ``older_than`` ago. Returns how many."""
+    try:
+        _, names = default_storage.listdir(KEPT_DIRECTORY)
+    except FileNotFoundError:  # no form has kept a file yet
+        return 0
+    cutoff = timezone.now() - older_than
+    deleted = 0
+    for name in names:
+        path = f"{KEPT_DIRECTORY}/{name}"
+        try:
+            if default_storage.get_modified_time(path) < cutoff:
+                default_storage.delete(path)
+                deleted += 1
+        except FileNotFoundError:  # another sweep or the form's own cleanup got there first
+            continue
+    return deleted
 
 
 # Used by the admin and pages to show a queue position.

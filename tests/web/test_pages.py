@@ -2,10 +2,15 @@
 
 from __future__ import annotations
 
+import os
 import re
+import time
+from io import StringIO
+from pathlib import Path
 
 import pytest
 from django.core.files.uploadedfile import SimpleUploadedFile
+from django.core.management import call_command
 from django.db import connection
 from django.test.utils import CaptureQueriesContext
 from django.urls import reverse
@@ -137,6 +142,28 @@ def test_a_missing_limit_line_is_explained_and_the_file_is_kept(client, engineer
     assert scan.original_name == "scan.csv" and scan.file.read().startswith(
         b"# built by the test suite"
     )
+
+
+def test_the_sweep_deletes_kept_files_left_for_a_day_and_the_form_asks_again(
+    client, engineer, revision, settings
+):
+    c = _client(client, engineer)
+    tokens = []
+    for _ in range(2):
+        html = c.post(reverse("log_fail"), _log_post(revision, limit_id="")).content.decode()
+        tokens.append(re.search(r'name="kept_file" value="([0-9a-f]{32})"', html).group(1))
+    kept = Path(settings.MEDIA_ROOT) / "kept"
+    old, fresh = (kept / t for t in tokens)
+    two_days_ago = time.time() - 2 * 86400
+    os.utime(old, (two_days_ago, two_days_ago))
+    out = StringIO()
+    call_command("sweep_stuck", stdout=out)
+    assert "1 kept form uploads deleted" in out.getvalue()
+    assert not old.exists() and fresh.exists()
+    # The swept token no longer stands for a file: the form asks for one, nothing is stored.
+    html = c.post(reverse("log_fail"), _log_post(revision, file=None, kept_file=tokens[0])).content.decode()
+    assert "Choose the trace file exported from the receiver, analyser or scope." in html
+    assert not Scan.objects.exists()
 
 
 def test_a_radiated_scan_needs_its_distance_and_a_matching_limit(client, engineer, revision):

@@ -2,11 +2,14 @@ from datetime import timedelta
 
 from django.core.management import BaseCommand
 
-from emicase.services.sweeper import QUEUED_TIMEOUT, sweep_stuck
+from emicase.services.sweeper import KEPT_FOR, QUEUED_TIMEOUT, sweep_kept_uploads, sweep_stuck
 
 
 class Command(BaseCommand):
-    help = "Re-queue uploads stuck in 'queued' or 'running' after a crash (safe to run any time; cron it in production)."
+    help = (
+        "Re-queue uploads stuck in 'queued' or 'running' after a crash, and delete form uploads "
+        f"kept for a retry more than {KEPT_FOR.days} day ago (safe to run any time; cron it in production)."
+    )
 
     def add_arguments(self, parser):
         parser.add_argument(
@@ -25,5 +28,7 @@ class Command(BaseCommand):
             queued_after=timedelta(seconds=opts["queued_after"]),
             running_after=None if running is None else timedelta(seconds=running),
         )
+        kept = sweep_kept_uploads()
         if opts["verbosity"]:
-            self.stdout.write(", ".join(f"{n} {kind}s re-queued" for kind, n in counts.items()))
+            requeued = ", ".join(f"{n} {kind}s re-queued" for kind, n in counts.items())
+            self.stdout.write(f"{requeued}; {kept} kept form uploads deleted")
