@@ -229,11 +229,12 @@ def _match(
     deviation = orders * f0[:, None]
     np.subtract(f[None, :], deviation, out=deviation)
     np.abs(deviation, out=deviation)
-    ok = deviation <= reach
-    # 1 ≤ n ≤ max_order for whole n: |n − (max_order + 1)/2| ≤ (max_order − 1)/2
-    ok &= np.abs(orders - 0.5 * (max_order + 1)) <= 0.5 * (max_order - 1)
-    cells = ok.ravel().nonzero()[0]
-    cell_order = orders.ravel()[cells].astype(np.int64)
+    cells = (deviation <= reach).ravel().nonzero()[0]
+    # 1 ≤ n ≤ max_order, tested on the few cells within reach only.
+    cell_order = orders.ravel()[cells]
+    in_range = (cell_order >= 1) & (cell_order <= max_order)
+    cells = cells[in_range]
+    cell_order = cell_order[in_range].astype(np.int64)
     if cells.size < 2:
         return cells, cell_order
     # Peaks sharing an order sit next to each other in a row (f is sorted).
