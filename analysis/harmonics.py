@@ -396,24 +396,34 @@ def _chance_matches(
     return p.sum(axis=1)
 
 
+def _median(values: np.ndarray) -> float:
+    """np.median of a few finite values (the middle one, or the mean of the
+    middle two), without its argument handling."""
+    ordered = np.sort(values)
+    half = ordered.size // 2
+    if ordered.size % 2:
+        return float(ordered[half])
+    return float((ordered[half - 1] + ordered[half]) / 2.0)
+
+
 def _is_spread(
     orders: np.ndarray, width_hz: np.ndarray, resolution_hz: np.ndarray, fundamental_hz: float
 ) -> bool:
     """Spread-spectrum criterion of the module docstring."""
-    if orders.size < 2 or not np.all(np.isfinite(width_hz) & (width_hz > 0)):
+    if orders.size < 2 or not (np.isfinite(width_hz) & (width_hz > 0)).all():
         return False
-    if np.any(resolution_hz > 0) and np.median(width_hz) < (
-        _SPREAD_MIN_WIDTH_OVER_RESOLUTION * np.median(resolution_hz)
+    if (resolution_hz > 0).any() and _median(width_hz) < (
+        _SPREAD_MIN_WIDTH_OVER_RESOLUTION * _median(resolution_hz)
     ):
         return False
     n = orders.astype(float)
-    excess = np.clip(width_hz - resolution_hz, 0.0, None)
-    k = float(np.sum(n * excess) / np.sum(n * n))
+    excess = np.maximum(width_hz - resolution_hz, 0.0)
+    k = float((n * excess).sum() / (n * n).sum())
     if k <= 0 or k / fundamental_hz < _SPREAD_MIN_FRACTION:
         return False
     ratio = excess / (k * n)
-    if np.any(ratio < 1 / _SPREAD_RATIO_LIMIT) or np.any(ratio > _SPREAD_RATIO_LIMIT):
+    if (ratio < 1 / _SPREAD_RATIO_LIMIT).any() or (ratio > _SPREAD_RATIO_LIMIT).any():
         return False
-    sse_proportional = float(np.sum((excess - k * n) ** 2))
-    sse_constant = float(np.sum((excess - excess.mean()) ** 2))
+    sse_proportional = float(((excess - k * n) ** 2).sum())
+    sse_constant = float(((excess - excess.mean()) ** 2).sum())
     return sse_proportional < sse_constant
