@@ -140,12 +140,15 @@ def find_families(
             f0 = _refine(f0, f, weight, cells[kept], cell_order[kept])
         cells, cell_order = _match(f0, f, reach, max_order)
         kept, score, missing, highest, odd, count = _best_comb(cells, cell_order, f0.size, cols)
-        expected = _chance_matches(f0, f, tol, active, highest, odd)
-        p_chance = _poisson_sf(count - 1, expected)
-        valid = (count >= min_peaks) & (missing <= count) & (p_chance <= false_alarm)
-        if not valid.any():
+        # The chance test only for the combs that pass the cheaper two (row
+        # by row, so the same figures as for all rows at once).
+        idx = ((count >= min_peaks) & (missing <= count)).nonzero()[0]
+        if idx.size == 0:
             break
-        idx = valid.nonzero()[0]
+        expected = _chance_matches(f0[idx], f, tol, active, highest[idx], odd[idx])
+        idx = idx[_poisson_sf(count[idx] - 1, expected) <= false_alarm]
+        if idx.size == 0:
+            break
         # Best score, ties to the higher fundamental (the simpler comb).
         best = idx[np.lexsort((-f0[idx], -score[idx]))[0]]
         kept_cells, kept_order = cells[kept], cell_order[kept]
