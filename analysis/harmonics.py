@@ -305,72 +305,92 @@ def _best_comb(
     # A row's matches are a contiguous segment of the cells, so counts along
     # a row are ranks within its segment and per-row maxima a reduceat. Both
     # readings go through at once: the odd-only reading's cells follow the
-    # others, as rows numbered from `rows` on.
+    # others, as rows numbered from `rows` on. The choice between the two is
+    # made per segment (the rows with cells), and spread over all rows only
+    # for the statistics.
+    size = cells.size
     cell_row = cells // cols
     cell_col = cells - cell_row * cols
     cell_odd = (cell_order & 1) == 1  # orders are ≥ 1
+    if size == 0:
+        kept = np.zeros(0, dtype=bool)
+        if not stats:
+            return (kept,)
+        score = np.empty(rows)
+        score.fill(-np.inf)
+        empty = np.zeros(rows, dtype=bool)
+        return (
+            kept,
+            score,
+            np.zeros(rows),
+            np.zeros(rows, cell_order.dtype),
+            empty,
+            np.zeros(rows, dtype=np.intp),
+        )
     odd_cells = cell_odd.nonzero()[0]
-    total = cells.size + odd_cells.size
-    best_score = np.empty(rows)
-    best_score.fill(-np.inf)
-    best_cut = np.empty(rows, dtype=np.intp)
-    best_cut.fill(-1)
-    best_odd = np.zeros(rows, dtype=bool)
-    if total:
-        chosen = np.concatenate((np.arange(cells.size), odd_cells))
-        row = np.concatenate((cell_row, cell_row[odd_cells] + rows))
-        order = cell_order[chosen]
-        new_row = np.empty(total, dtype=bool)
-        new_row[0] = True
-        np.not_equal(row[1:], row[:-1], out=new_row[1:])
-        segment = new_row.nonzero()[0]
-        segment_id = new_row.cumsum(dtype=np.intp)
-        segment_id -= 1
-        count = np.arange(1, total + 1) - segment[segment_id]
-        span = order - order[segment][segment_id]
-        # Orders in the span: all of them, or (the odd-only reading's cells,
-        # from cells.size on) every other one; spans are ≥ 0.
-        possible = span + 1
-        possible[cells.size :] = (span[cells.size :] >> 1) + 1
-        score = count - _GAP_PENALTY * (possible - count)
-        row_best = np.maximum.reduceat(score, segment)
-        # Ties go to the longer comb: more peaks explained for the same score.
-        at_best = (score == row_best[segment_id]).nonzero()[0]
-        best_id = segment_id[at_best]
-        last_of_row = np.empty(at_best.size, dtype=bool)
-        last_of_row[-1] = True
-        np.not_equal(best_id[1:], best_id[:-1], out=last_of_row[:-1])
-        cut = cell_col[chosen[at_best[last_of_row]]]
-        segment_row = row[segment]
-        # The all-orders reading first; the odd-only one where strictly better.
-        plain = segment_row < rows
-        best_score[segment_row[plain]] = row_best[plain]
-        best_cut[segment_row[plain]] = cut[plain]
-        odd = ~plain
-        odd_row = segment_row[odd] - rows
-        odd_best = row_best[odd]
-        better = odd_best > best_score[odd_row]
-        best_score[odd_row[better]] = odd_best[better]
-        best_cut[odd_row[better]] = cut[odd][better]
-        best_odd[odd_row[better]] = True
-    kept = cell_col <= best_cut[cell_row]
-    kept &= ~best_odd[cell_row] | cell_odd
+    total = size + odd_cells.size
+    chosen = np.concatenate((np.arange(size), odd_cells))
+    row = np.concatenate((cell_row, cell_row[odd_cells] + rows))
+    order = cell_order[chosen]
+    new_row = np.empty(total, dtype=bool)
+    new_row[0] = True
+    np.not_equal(row[1:], row[:-1], out=new_row[1:])
+    segment = new_row.nonzero()[0]
+    segment_id = new_row.cumsum(dtype=np.intp)
+    segment_id -= 1
+    count = np.arange(1, total + 1) - segment[segment_id]
+    span = order - order[segment][segment_id]
+    # Orders in the span: all of them, or (the odd-only reading's cells, from
+    # `size` on) every other one; spans are ≥ 0.
+    possible = span + 1
+    possible[size:] = (span[size:] >> 1) + 1
+    score = count - _GAP_PENALTY * (possible - count)
+    segment_best = np.maximum.reduceat(score, segment)
+    # Ties go to the longer comb: more peaks explained for the same score.
+    at_best = (score == segment_best[segment_id]).nonzero()[0]
+    best_id = segment_id[at_best]
+    last_of_segment = np.empty(at_best.size, dtype=bool)
+    last_of_segment[-1] = True
+    np.not_equal(best_id[1:], best_id[:-1], out=last_of_segment[:-1])
+    segment_cut = cell_col[chosen[at_best[last_of_segment]]]  # one per segment
+    # Segments 0 … plain − 1 are the all-orders reading of the rows with
+    # cells (ascending); the odd-only ones follow, for a subset of those rows.
+    plain = int(segment_id[size - 1]) + 1
+    plain_rows = cell_row[segment[:plain]]
+    best_score = segment_best[:plain].copy()
+    best_cut = segment_cut[:plain].copy()
+    best_odd = np.zeros(plain, dtype=bool)
+    if segment.size > plain:
+        odd_best = segment_best[plain:]
+        into = np.searchsorted(plain_rows, row[segment[plain:]] - rows)
+        # The odd-only reading where strictly better.
+        better = odd_best > best_score[into]
+        better_into = into[better]
+        best_score[better_into] = odd_best[better]
+        best_cut[better_into] = segment_cut[plain:][better]
+        best_odd[better_into] = True
+    cell_segment = segment_id[:size]
+    kept = cell_col <= best_cut[cell_segment]
+    kept &= ~best_odd[cell_segment] | cell_odd
     if not stats:
         return (kept,)
-    has = best_cut >= 0
     kept_row = cell_row[kept]
     count = np.bincount(kept_row, minlength=rows)
     # Orders do not decrease along a row (f is sorted): a row's highest kept
     # order is that of its last kept cell.
     highest = np.zeros(rows, dtype=cell_order.dtype)
-    if kept_row.size:
-        last = np.empty(kept_row.size, dtype=bool)
-        last[-1] = True
-        np.not_equal(kept_row[1:], kept_row[:-1], out=last[:-1])
-        highest[kept_row[last]] = cell_order[kept][last]
-    score = np.where(has, best_score, -np.inf)
-    missing = np.where(has, count - best_score, 0.0) / _GAP_PENALTY
-    return kept, score, missing, highest, best_odd, count
+    last = np.empty(kept_row.size, dtype=bool)
+    last[-1:] = True
+    np.not_equal(kept_row[1:], kept_row[:-1], out=last[:-1])
+    highest[kept_row[last]] = cell_order[kept][last]
+    row_score = np.empty(rows)
+    row_score.fill(-np.inf)
+    row_score[plain_rows] = best_score
+    missing = np.zeros(rows)
+    missing[plain_rows] = (count[plain_rows] - best_score) / _GAP_PENALTY
+    row_odd = np.zeros(rows, dtype=bool)
+    row_odd[plain_rows] = best_odd
+    return kept, row_score, missing, highest, row_odd, count
 
 
 def _poisson_sf(k: np.ndarray, mu: np.ndarray) -> np.ndarray:
