@@ -603,6 +603,13 @@ class SignatureItem(models.Model):
     # Blank for near-field captures and failing frequencies of unknown kind.
     emission_kind = models.CharField(max_length=10, choices=Scan.EmissionKind.choices, blank=True)
     indexed_at = models.DateTimeField(default=timezone.now)
+    # The same frequencies as the item's rows, packed for scoring: its peaks,
+    # then its fundamentals, each ascending, as little-endian float64
+    # (``services.search.pack_signature``). The rows serve the range scans;
+    # the search reads a candidate's signature from here, one row per item
+    # (4,400 rows for 200 candidates took 5.4 ms to read, these 1.6 ms).
+    peak_count = models.PositiveIntegerField(default=0)
+    packed_hz = models.BinaryField(default=b"")
 
     class Meta:
         constraints = [

@@ -26,7 +26,8 @@ Search, in two steps:
    centre, ½ at the edge); a fundamental weighs 0.7 × the number of
    query frequencies on its orders, as sharing it earns the family credit for
    each of them. The best ``candidates`` (200) go on.
-2. Scores: the candidates' rows are loaded, one Signature per item, and
+2. Scores: the candidates' items are loaded (each item's frequencies packed
+   in one column, ``SignatureItem.packed_hz``), one Signature per item, and
    scored at once with ``analysis.signature.similarity_many`` (the score its
    module documents: query coverage, family credit, the other's coverage).
    A case scores as its best item. The page's hits are then explained with
@@ -70,7 +71,6 @@ import logging
 import uuid
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
-from itertools import chain
 
 import numpy as np
 from django.conf import settings
@@ -161,6 +161,14 @@ def _case_for_index(case_id: int) -> Case:
     return Case.objects.select_related("product").get(pk=case_id)
 
 
+def pack_signature(peaks_hz, fundamentals_hz) -> tuple[int, bytes]:
+    """(peak count, ``SignatureItem.packed_hz``): the peaks, then the fundamentals, each
+    ascending, as little-endian float64: the order the item's rows sort in."""
+    peaks = np.sort(np.asarray(peaks_hz, dtype=float).ravel())
+    fundamentals = np.sort(np.asarray(fundamentals_hz, dtype=float).ravel())
+    return int(peaks.size), np.concatenate([peaks, fundamentals]).astype("<f8").tobytes()
+
+
 def _store_item(
     *,
     case: Case,
@@ -171,8 +179,15 @@ def _store_item(
     capture=None,
 ) -> SignatureItem:
     """Write one item and its rows. Call inside a transaction, after removing the item it replaces."""
+    peak_count, packed = pack_signature(signature.frequency_hz, signature.fundamentals_hz)
     item = SignatureItem.objects.create(
-        case=case, source=source, scan=scan, capture=capture, emission_kind=emission_kind
+        case=case,
+        source=source,
+        scan=scan,
+        capture=capture,
+        emission_kind=emission_kind,
+        peak_count=peak_count,
+        packed_hz=packed,
     )
     common = {
         "item": item,
@@ -735,32 +750,38 @@ def _candidate_signatures(
 ) -> tuple[np.ndarray, np.ndarray, SignatureSet]:
     """(item ids, their case ids, their signatures) of the candidates' items, by case then item.
 
-    Read in the order of the (case, item, role, frequency) index, from the index alone.
+    One row per item: its packed frequencies (``SignatureItem.packed_hz``).
     """
-    # A fundamental comes back as minus its frequency: three numbers a row to read, not four.
     sql = (
-        f"SELECT p.item_id, p.case_id, CASE WHEN p.role = {int(Role.FUNDAMENTAL)} "
-        f"THEN -p.frequency_hz ELSE p.frequency_hz END FROM {_table(SignatureRow)} p "
-        f"WHERE p.case_id IN ({_ids(case_ids)})"
+        f"SELECT i.id, i.case_id, i.peak_count, i.packed_hz FROM {_table(SignatureItem)} i "
+        f"WHERE i.case_id IN ({_ids(case_ids)})"
     )
     params: list = []
     if emission_kind:
-        sql += " AND p.emission_kind = %s"
+        sql += " AND i.emission_kind = %s"
         params.append(emission_kind)
-    sql += " ORDER BY p.case_id, p.item_id, p.role, p.frequency_hz"
+    sql += " ORDER BY i.case_id, i.id"
     with connection.cursor() as cursor:
         cursor.execute(sql, params or None)
         rows = cursor.fetchall()
     if not rows:
         return np.zeros(0, np.int64), np.zeros(0, np.int64), SignatureSet.of([])
-    # Ids are far below 2**53, so float64 holds them exactly. fromiter over the
-    # flattened rows takes half the time np.array needs for a list of tuples.
-    table = np.fromiter(chain.from_iterable(rows), dtype=float, count=3 * len(rows)).reshape(-1, 3)
-    item, case, signed = table[:, 0].astype(np.int64), table[:, 1].astype(np.int64), table[:, 2]
-    new_item = np.r_[True, item[1:] != item[:-1]]
-    starts = np.flatnonzero(new_item)
-    signatures = SignatureSet.from_rows(np.cumsum(new_item) - 1, np.abs(signed), signed < 0)
-    return item[starts], case[starts], signatures
+    # An item without frequencies (a scan with no peaks) has no rows and scores nothing.
+    rows = [r for r in rows if len(r[3])]
+    if not rows:
+        return np.zeros(0, np.int64), np.zeros(0, np.int64), SignatureSet.of([])
+    n = len(rows)
+    item = np.fromiter((r[0] for r in rows), np.int64, n)
+    case = np.fromiter((r[1] for r in rows), np.int64, n)
+    peak_count = np.fromiter((r[2] for r in rows), np.int64, n)
+    # SQLite gives bytes, PostgreSQL a memoryview: both join as bytes.
+    blobs = [r[3] for r in rows]
+    count = np.fromiter((len(b) for b in blobs), np.int64, n) // 8
+    values = np.frombuffer(b"".join(blobs), dtype="<f8")
+    group = np.repeat(np.arange(n), count)
+    position = np.arange(values.size) - np.repeat(np.cumsum(count) - count, count)
+    signatures = SignatureSet.from_rows(group, values, position >= peak_count[group])
+    return item, case, signatures
 
 
 @dataclass

@@ -575,6 +575,40 @@ def test_analysing_a_scan_or_capture_indexes_it_and_an_after_scan_not(
     assert not SignatureItem.objects.filter(scan_id=v.after_scan_id).exists()
 
 
+def _unpacked(item: SignatureItem) -> tuple[list[float], list[float]]:
+    values = np.frombuffer(bytes(item.packed_hz), dtype="<f8").tolist()
+    return values[: item.peak_count], values[item.peak_count :]
+
+
+def _rows_of(item: SignatureItem) -> tuple[list[float], list[float]]:
+    rows = SignatureRow.objects.filter(item=item).order_by("frequency_hz")
+    return (
+        list(rows.filter(role=0).values_list("frequency_hz", flat=True)),
+        list(rows.filter(role=1).values_list("frequency_hz", flat=True)),
+    )
+
+
+def test_each_item_packs_exactly_the_frequencies_of_its_rows(history):
+    items = list(SignatureItem.objects.all())
+    assert items and any(item.peak_count > 0 for item in items)
+    for item in items:
+        assert _unpacked(item) == _rows_of(item)
+
+
+def test_the_migration_packs_items_indexed_before_it(history):
+    import importlib
+
+    from django.apps import apps
+
+    migration = importlib.import_module("emicase.migrations.0006_signature_item_packed")
+    expected = {item.pk: _rows_of(item) for item in SignatureItem.objects.all()}
+    SignatureItem.objects.update(peak_count=0, packed_hz=b"")
+    migration.pack_existing(apps, None)
+    got = {item.pk: _unpacked(item) for item in SignatureItem.objects.all()}
+    assert got == expected
+    assert any(peaks for peaks, _ in got.values()) and any(g for _, g in got.values())
+
+
 def test_reindex_signatures_rebuilds_the_index_from_stored_results(history):
     from django.core.management import CommandError, call_command
 

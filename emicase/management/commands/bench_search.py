@@ -225,6 +225,7 @@ class Seeder:
     @transaction.atomic
     def _batch(self, n: int) -> None:
         from emicase.models import Case, Countermeasure, SignatureItem, SignatureRow
+        from emicase.services.search import pack_signature
 
         rng = self.rng
         now = timezone.now()
@@ -280,9 +281,16 @@ class Seeder:
             batch_size=2000,
         )
         signatures = [synthetic_signature(rng) for _ in range(n)]
+        packed = [pack_signature(peaks, fundamentals) for _, peaks, fundamentals in signatures]
         items = SignatureItem.objects.bulk_create(
             [
-                SignatureItem(case=cases[i], source="failing", emission_kind=signatures[i][0])
+                SignatureItem(
+                    case=cases[i],
+                    source="failing",
+                    emission_kind=signatures[i][0],
+                    peak_count=packed[i][0],
+                    packed_hz=packed[i][1],
+                )
                 for i in range(n)
             ],
             batch_size=2000,
