@@ -335,11 +335,21 @@ def _padded(arrays: Sequence[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _closeness(deviation: np.ndarray, tol: np.ndarray) -> np.ndarray:
-    """1 at zero deviation, _EDGE_CREDIT at the tolerance, 0 beyond (and for NaN)."""
+    """1 at zero deviation, _EDGE_CREDIT at the tolerance, 0 beyond (and for NaN).
+
+    In place on one temporary (the largest arrays of a search are its (C, M, K)
+    deviations): 1 + (−(1 − _EDGE_CREDIT))·ratio is bit for bit 1 − (1 − _EDGE_CREDIT)·ratio.
+    """
     with np.errstate(invalid="ignore", divide="ignore"):
-        ratio = np.where(tol > 0, deviation / tol, np.where(deviation == 0, 0.0, np.inf))
-    inside = ratio <= 1.0
-    return np.where(inside, 1.0 - (1.0 - _EDGE_CREDIT) * ratio, 0.0)
+        credit = np.divide(deviation, tol)
+    no_tol = ~(np.asarray(tol) > 0)
+    if no_tol.any():  # within no tolerance only an exact match counts (0/0 is NaN above)
+        credit[np.broadcast_to(no_tol, credit.shape) & (deviation == 0)] = 0.0
+    outside = ~(credit <= 1.0)  # NaN too
+    credit *= -(1.0 - _EDGE_CREDIT)
+    credit += 1.0
+    credit[outside] = 0.0
+    return credit
 
 
 class _Comparison:

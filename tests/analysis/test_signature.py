@@ -222,3 +222,27 @@ def test_typed_frequencies_find_a_family_from_three_but_not_from_two():
     assert signature_from_frequencies([96e6, 144e6]).fundamentals_hz.size == 0
     with pytest.raises(TraceError):
         signature_from_frequencies([96e6, 0.0])
+
+
+def test_closeness_in_place_equals_its_plain_formula():
+    # The in-place _closeness against the formula its docstring states, element by element:
+    # 1 − (1 − edge)·d/t inside the tolerance, 0 beyond it or for NaN, and within no
+    # tolerance (t = 0 or NaN) 1 for an exact match only.
+    from analysis.signature import _EDGE_CREDIT, _closeness
+
+    rng = np.random.default_rng(5)
+    dev = np.abs(rng.normal(0, 1, (40, 12, 9)))
+    dev[rng.random(dev.shape) < 0.1] = np.nan
+    dev[rng.random(dev.shape) < 0.1] = 0.0
+    tol = np.abs(rng.normal(0, 1, (40, 1, 9)))
+    tol[rng.random(tol.shape) < 0.2] = 0.0
+    tol[rng.random(tol.shape) < 0.1] = np.nan
+    d, t = np.broadcast_arrays(dev, tol)
+    expected = np.zeros(d.shape)
+    for index in np.ndindex(d.shape):
+        if not t[index] > 0:
+            expected[index] = 1.0 if d[index] == 0 else 0.0
+        elif d[index] <= t[index]:
+            expected[index] = 1.0 - (1.0 - _EDGE_CREDIT) * (d[index] / t[index])
+    assert np.array_equal(_closeness(dev, tol), expected)
+    assert 0 < np.count_nonzero((expected > 0) & (expected < 1))  # the inside branch is exercised
