@@ -127,19 +127,19 @@ def bucket_starts(
                 edges = 10.0 ** (lo + (hi - lo) * np.arange(1, n_buckets) / n_buckets)
                 head = np.searchsorted(edges, head_x, side="right")
                 last = int(np.searchsorted(edges, x[-1], side="right"))
-                return 1 + int(np.count_nonzero(np.diff(head))) + last - int(head[-1])
+                return 1 + _changes(head) + last - int(head[-1])
             if not head_log:
                 head_log.append(np.log10(head_x) - lo)
             head = edges_below(head_x, head_log[0], n_buckets)
             # x[-1] is 10 ** hi: every edge, the highest (hi − lo) / n_buckets
             # decades below it, lies under it.
             last = n_buckets - 1
-            return 1 + int(np.count_nonzero(np.diff(head))) + last - int(head[-1])
+            return 1 + _changes(head) + last - int(head[-1])
         inner = inner_starts(n_buckets)
         if inner.size == 0:
             return 1
         # Every edge lies above x[n_positive_from], so inner ≥ n_positive_from.
-        return 1 + int(inner[0] != n_positive_from) + int(np.count_nonzero(np.diff(inner)))
+        return 1 + int(inner[0] != n_positive_from) + _changes(inner)
 
     def starts_for(n_buckets: int) -> np.ndarray:
         starts = np.concatenate(([n_positive_from], inner_starts(n_buckets)))
@@ -236,6 +236,12 @@ def _extreme_indices(
     both = np.sort(np.column_stack(positions), axis=1).ravel()
     # A bucket whose min and max are one sample yields it once.
     return both[_run_starts(both)]
+
+
+def _changes(values: np.ndarray) -> int:
+    """How many neighbours differ (np.count_nonzero(np.diff(values)), without
+    the intermediate array of differences)."""
+    return int(np.count_nonzero(values[1:] != values[:-1]))
 
 
 def _run_starts(values: np.ndarray) -> np.ndarray:
