@@ -218,7 +218,8 @@ def _extreme_indices(
     # Samples equal to their bucket's extreme, looked for in runs of whole
     # buckets of about _STEP_BLOCK samples, so that the per-sample work stays
     # in cache.
-    group = np.unique(np.searchsorted(starts, np.arange(0, y.size, _STEP_BLOCK), side="right") - 1)
+    group = np.searchsorted(starts, np.arange(0, y.size, _STEP_BLOCK), side="right") - 1
+    group = group[_run_starts(group)]  # np.unique of a sorted array
     hits: tuple[list[np.ndarray], list[np.ndarray]] = ([], [])
     for g0, g1 in zip(group.tolist(), [*group[1:].tolist(), starts.size], strict=True):
         a = int(starts[g0])

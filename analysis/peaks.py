@@ -342,7 +342,11 @@ def _topography(
     the cost of a few points per candidate.
     """
     n = level.size
-    neighbourhood = np.unique(np.concatenate((candidates - 1, candidates, candidates + 1)))
+    # np.unique, by sorting: numpy 2's np.unique hashes integers first, which
+    # for a few hundred indices costs several times the sort.
+    neighbourhood = _distinct_sorted(
+        np.sort(np.concatenate((candidates - 1, candidates, candidates + 1)))
+    )
     neighbourhood = neighbourhood[(neighbourhood >= 0) & (neighbourhood < n)]
     floor = _floor_at(model, frequency_hz, neighbourhood)
     clipped = np.maximum(level[neighbourhood], floor)
