@@ -158,28 +158,8 @@ class CaseEventAdmin(admin.ModelAdmin):
     list_select_related = ["case", "actor"]
 
 
-# The signature search index is derived data (services.search writes it,
-# ``manage.py reindex_signatures`` rebuilds it): listed for inspection.
-@admin.register(models.SignatureItem)
-class SignatureItemAdmin(admin.ModelAdmin):
-    list_display = ["id", "case", "source", "emission_kind", "indexed_at"]
-    list_filter = ["source", "emission_kind"]
-    raw_id_fields = ["case", "scan", "capture"]
-
-
-@admin.register(models.SignatureRow)
-class SignatureRowAdmin(admin.ModelAdmin):
-    list_display = ["id", "case", "role", "frequency_hz", "emission_kind", "outcome"]
-    list_filter = ["role", "outcome", "emission_kind"]
-    raw_id_fields = ["item", "case", "team", "product"]
-
-
-# The audit log is append-only: the admin reads it, never adds, edits or deletes a line.
-@admin.register(models.AuditEvent)
-class AuditEventAdmin(admin.ModelAdmin):
-    list_display = ["at", "team", "actor_name", "verb", "text", "remote_addr"]
-    list_filter = ["verb", "team"]
-    list_select_related = ["team"]
+class ViewOnlyAdmin(admin.ModelAdmin):
+    """Listed and shown, never added, changed or deleted here."""
 
     def has_add_permission(self, request):
         return False
@@ -189,3 +169,28 @@ class AuditEventAdmin(admin.ModelAdmin):
 
     def has_delete_permission(self, request, obj=None):
         return False
+
+
+# The signature search index is derived data (services.search writes it,
+# ``manage.py reindex_signatures`` rebuilds it): listed for inspection only, as
+# an edit here would put an item's rows and its packed frequencies out of step.
+@admin.register(models.SignatureItem)
+class SignatureItemAdmin(ViewOnlyAdmin):
+    list_display = ["id", "case", "source", "emission_kind", "peak_count", "indexed_at"]
+    list_filter = ["source", "emission_kind"]
+    raw_id_fields = ["case", "scan", "capture"]
+
+
+@admin.register(models.SignatureRow)
+class SignatureRowAdmin(ViewOnlyAdmin):
+    list_display = ["id", "case", "role", "frequency_hz", "emission_kind", "outcome"]
+    list_filter = ["role", "outcome", "emission_kind"]
+    raw_id_fields = ["item", "case", "team", "product"]
+
+
+# The audit log is append-only: the admin reads it, never adds, edits or deletes a line.
+@admin.register(models.AuditEvent)
+class AuditEventAdmin(ViewOnlyAdmin):
+    list_display = ["at", "team", "actor_name", "verb", "text", "remote_addr"]
+    list_filter = ["verb", "team"]
+    list_select_related = ["team"]

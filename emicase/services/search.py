@@ -763,11 +763,8 @@ def _candidate_signatures(
     sql += " ORDER BY i.case_id, i.id"
     with connection.cursor() as cursor:
         cursor.execute(sql, params or None)
-        rows = cursor.fetchall()
-    if not rows:
-        return np.zeros(0, np.int64), np.zeros(0, np.int64), SignatureSet.of([])
-    # An item without frequencies (a scan with no peaks) has no rows and scores nothing.
-    rows = [r for r in rows if len(r[3])]
+        # An item without frequencies (a scan with no peaks) has no rows and scores nothing.
+        rows = [r for r in cursor.fetchall() if len(r[3])]
     if not rows:
         return np.zeros(0, np.int64), np.zeros(0, np.int64), SignatureSet.of([])
     n = len(rows)
