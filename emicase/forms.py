@@ -29,6 +29,7 @@ from emicase.models import (
     Scan,
     Verification,
 )
+from emicase.services.sweeper import KEPT_DIRECTORY
 from emicase.services.uploads import check_trace_file
 
 TRACE_SUFFIXES = (".csv", ".txt", ".tsv", ".dat", ".asc", ".prn")
@@ -108,7 +109,7 @@ class KeepsUpload(forms.Form):
             return
         token = uuid.uuid4().hex
         upload.seek(0)
-        path = default_storage.save(f"kept/{token}", upload)
+        path = default_storage.save(f"{KEPT_DIRECTORY}/{token}", upload)
         kept = dict(self.session.get(KEPT_SESSION_KEY, {}))
         # A handful per session is plenty; drop the oldest files.
         for old in list(kept)[: max(0, len(kept) - KEPT_PER_SESSION + 1)]:
