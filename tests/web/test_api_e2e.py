@@ -69,7 +69,9 @@ def test_a_capture_posted_with_a_token_is_analysed_and_read(
     trace.write_bytes(receiver_csv([(75.1e6, 52.0)], unit="dBµV", floor=5.0))
 
     capture = _post_capture(live_server, token, case, trace)
-    assert capture["status"] == "queued" and capture["url"].startswith(live_server.url)
+    # The answer re-reads the capture, and the live worker may already have taken it.
+    assert capture["status"] in ("queued", "running", "done")
+    assert capture["url"].startswith(live_server.url)
     done = _poll(capture["url"], token)
 
     assert done["status"] == "done", done["error_text"]
