@@ -9,14 +9,15 @@ How a family is chosen (greedy, best first):
 1. Candidates for f0: each of the strongest peaks divided by 1..16 (the first
    order is often missing or below the scan's start), plus the spacing of
    neighbouring strong peaks and half of it (an odd-only comb is spaced 2·f0).
-2. Every candidate is scored against every unclaimed peak at once (numpy
+2. Every candidate is scored against every peak at once (numpy
    broadcasting). Peak f matches order n = round(f/f0) when
    ``|f − n·f0| ≤ max(2·resolution, rel_tol·f, width/2)``, n ≤ max_order. The
    first two terms are the issue's rule ("the larger of 2 resolution steps and
    0.2 %"); half the peak's width is added because a wide (spread-spectrum)
    peak's reported frequency can sit anywhere on its plateau. One peak per
-   order (the closest). f0 is refined twice by least squares over its matches,
-   f0 = Σ n·f / Σ n², and the peaks matched again.
+   order (the closest). f0 is refined twice by weighted least squares over
+   all its matches, f0 = Σ w·n·f / Σ w·n² with w = 1/tol², and the peaks
+   matched again.
 3. Simplest explanation first: a candidate's score is its number of matched
    orders minus 0.5 × the orders it predicts between its lowest and highest
    matched order that are not there (for an odd-only set, only the missing odd
@@ -35,8 +36,11 @@ How a family is chosen (greedy, best first):
    matches is about Poisson with mean Σ p_j, and the family is kept only if
    P(≥ its count) ≤ ``false_alarm`` (per candidate). Tiny fundamentals, whose
    dense combs catch random peaks, fail this test.
-5. The chosen family's peaks are removed and the search repeats, up to
-   ``max_families`` times.
+5. The chosen family's peaks leave every other candidate's matches and the
+   choice repeats, up to ``max_families`` times, on the same refined
+   candidates: they are not refined again without those peaks. A fresh
+   search per family found the same families almost always and cost twice
+   as much (DEVELOPERS.md, "Harmonic families").
 
 Spread spectrum: a spread clock turns each harmonic into a plateau whose width
 grows with the order (±0.5 % or down-spread 1 % of n·f0). A family is flagged
@@ -106,39 +110,31 @@ def find_families(
     # The least-squares weight of each peak (see _refine), the same in every round.
     weight = 1.0 / np.maximum(tol, 1e-9 * f) ** 2
 
-    candidates = _candidates(f, prominence_db[by_frequency])
-    claimed = np.zeros(f.size, dtype=bool)
-    families: list[Family] = []
+    f0 = _candidates(f, prominence_db[by_frequency])
+    cols = f.size
     # The search works on the matched cells of the candidates × peaks grid
     # (flat indices, row-major): a few per candidate. Each step is a handful
     # of whole-array operations; with tens of peaks and hundreds of
     # candidates their count, not their size, is what the search costs.
-    while len(families) < max_families and f.size - np.count_nonzero(claimed) >= min_peaks:
+    # A candidate matching no peak keeps its f0 through the refinement
+    # (nothing to fit), so it matches nothing and never makes a family.
+    cells, cell_order = _match(f0, f, tol, max_order)
+    for refinement in range(_REFINE_PASSES):
+        if refinement > 0:
+            # Candidates refined from the same matches now share their f0
+            # exactly, and everything from here on depends on f0 alone:
+            # keep one of each (ties between them are ties in everything).
+            f0 = np.unique(f0)
+            cells, cell_order = _match(f0, f, tol, max_order)
+        f0 = _refine(f0, f, weight, cells, cell_order)
+    cells, cell_order = _match(f0, f, tol, max_order)
+
+    # Greedy choice on these refined combs: the best family claims its peaks,
+    # which leave every other comb, and the choice repeats.
+    claimed = np.zeros(cols, dtype=bool)
+    families: list[Family] = []
+    while len(families) < max_families and cols - np.count_nonzero(claimed) >= min_peaks:
         active = ~claimed
-        reach = np.where(active, tol, -1.0)
-        cells, cell_order = _match(candidates, f, reach, max_order)
-        # A candidate matching no unclaimed peak keeps its f0 through the
-        # refinement (nothing to fit), so it matches nothing and cannot make a
-        # family now, nor later, when fewer peaks are unclaimed: drop it.
-        cols = f.size
-        cell_row = cells // cols
-        matched = np.zeros(candidates.size, dtype=bool)
-        matched[cell_row] = True
-        if not matched.all():
-            rank = np.cumsum(matched) - 1
-            cells = rank[cell_row] * cols + (cells - cell_row * cols)
-            candidates = candidates[matched]
-        f0 = candidates
-        for refinement in range(_REFINE_PASSES):
-            if refinement > 0:
-                # Candidates refined from the same matches now share their f0
-                # exactly, and everything from here on depends on f0 alone:
-                # keep one of each (ties between them are ties in everything).
-                f0 = np.unique(f0)
-                cells, cell_order = _match(f0, f, reach, max_order)
-            kept = _best_comb(cells, cell_order, f0.size, cols, stats=False)[0]
-            f0 = _refine(f0, f, weight, cells[kept], cell_order[kept])
-        cells, cell_order = _match(f0, f, reach, max_order)
         kept, score, missing, highest, odd, count = _best_comb(cells, cell_order, f0.size, cols)
         # The chance test only for the combs that pass the cheaper two (row
         # by row, so the same figures as for all rows at once).
@@ -166,6 +162,8 @@ def find_families(
             )
         )
         claimed[columns] = True
+        free = ~claimed[cells % cols]
+        cells, cell_order = cells[free], cell_order[free]
     return tuple(families)
 
 
@@ -184,9 +182,9 @@ def _check_options(
 
 
 def _peak_arrays(peaks: Sequence[Peak]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    frequency_hz = np.array([p.frequency_hz for p in peaks], dtype=float)
-    prominence_db = np.array([p.prominence_db for p in peaks], dtype=float)
-    width_hz = np.array([p.width_hz for p in peaks], dtype=float)
+    # One pass over the peaks; each column is then a contiguous copy.
+    table = np.array([(p.frequency_hz, p.prominence_db, p.width_hz) for p in peaks], dtype=float)
+    frequency_hz, prominence_db, width_hz = table.T.copy()
     bad = ~(np.isfinite(frequency_hz) & (frequency_hz > 0))
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
@@ -217,22 +215,21 @@ def _candidates(f: np.ndarray, prominence_db: np.ndarray) -> np.ndarray:
 
 
 def _match(
-    f0: np.ndarray, f: np.ndarray, reach: np.ndarray, max_order: int
+    f0: np.ndarray, f: np.ndarray, tol: np.ndarray, max_order: int
 ) -> tuple[np.ndarray, np.ndarray]:
     """The matched cells of the (candidate, peak) grid, one peak per order (the closest).
 
     Returns their flat indices (row-major, ascending) and their orders: peak f
     matches candidate f0 at order n = round(f/f0) when 1 ≤ n ≤ max_order and
-    |f − n·f0| ≤ its ``reach`` (its tolerance; −1 for a claimed peak, which
-    then matches nothing); of peaks sharing an order the closest is kept (the
-    first on exact ties).
+    |f − n·f0| ≤ its ``tol``; of peaks sharing an order the closest is kept
+    (the first on exact ties).
     """
     orders = np.divide(f[None, :], f0[:, None])
     np.rint(orders, out=orders)  # whole numbers, so the tests below are exact
     deviation = orders * f0[:, None]
     np.subtract(f[None, :], deviation, out=deviation)
     np.abs(deviation, out=deviation)
-    cells = (deviation <= reach).ravel().nonzero()[0]
+    cells = (deviation <= tol).ravel().nonzero()[0]
     # 1 ≤ n ≤ max_order, tested on the few cells within reach only.
     cell_order = orders.ravel()[cells]
     in_range = (cell_order >= 1) & (cell_order <= max_order)
@@ -240,18 +237,18 @@ def _match(
     cell_order = cell_order[in_range].astype(np.int64)
     if cells.size < 2:
         return cells, cell_order
-    # Peaks sharing an order sit next to each other in a row (f is sorted).
-    # Of each run of adjacent matched peaks with one order keep the closest
-    # (the first on exact ties). Row-major order keeps each row's runs together.
-    cols = f.size
-    later = cells[1:]
+    # Orders do not decrease along a row (f is sorted), so the matched peaks
+    # sharing a row and an order are neighbours in the cell list: one key
+    # per (row, order), equal keys side by side.
+    key = cells // f.size
+    key *= max_order + 1
+    key += cell_order
     run_start = np.empty(cells.size, dtype=bool)
     run_start[0] = True
-    np.not_equal(later - cells[:-1], 1, out=run_start[1:])
-    run_start[1:] |= later % cols == 0
-    run_start[1:] |= cell_order[1:] != cell_order[:-1]
+    np.not_equal(key[1:], key[:-1], out=run_start[1:])
     if run_start.all():  # the usual case: no two peaks share an order
         return cells, cell_order
+    # Of each run keep the closest (the first on exact ties).
     run_id = np.cumsum(run_start) - 1
     dev = deviation.ravel()[cells]
     closest = (dev == np.minimum.reduceat(dev, run_start.nonzero()[0])[run_id]).nonzero()[0]
@@ -274,19 +271,18 @@ def _refine(
     deviation counts about equally; the plain Σ n·f / Σ n² would let one stray
     high-order match drag f0.
     """
-    n = np.zeros(f0.size * f.size)
-    n[cells] = orders.astype(np.float64)
-    n = n.reshape(f0.size, f.size)
-    weighted = weight * n
-    denominator = np.multiply(weighted, n, out=n).sum(axis=1)
-    numerator = np.multiply(weighted, f, out=weighted).sum(axis=1)
+    row, col = np.divmod(cells, f.size)
+    n = orders.astype(np.float64)
+    weighted = weight[col] * n
+    denominator = np.bincount(row, weights=weighted * n, minlength=f0.size)
+    numerator = np.bincount(row, weights=weighted * f[col], minlength=f0.size)
     refined = f0.copy()
     np.divide(numerator, denominator, out=refined, where=denominator > 0)
     return refined
 
 
 def _best_comb(
-    cells: np.ndarray, cell_order: np.ndarray, rows: int, cols: int, *, stats: bool = True
+    cells: np.ndarray, cell_order: np.ndarray, rows: int, cols: int
 ) -> tuple[np.ndarray, ...]:
     """The simplest comb inside each candidate's matches.
 
@@ -299,8 +295,7 @@ def _best_comb(
     of holes. ``cells`` (ascending flat indices into the rows × cols grid)
     and ``cell_order`` are _match's. Returns which cells are kept and, per
     row, the score, the missing count, the highest kept order, whether the
-    comb is odd-only and how many cells it keeps. Without ``stats`` (the
-    refinement passes need only the cells), just ``(kept,)``.
+    comb is odd-only and how many cells it keeps.
     """
     # A row's matches are a contiguous segment of the cells, so counts along
     # a row are ranks within its segment and per-row maxima a reduceat. Both
@@ -314,8 +309,6 @@ def _best_comb(
     cell_odd = (cell_order & 1) == 1  # orders are ≥ 1
     if size == 0:
         kept = np.zeros(0, dtype=bool)
-        if not stats:
-            return (kept,)
         score = np.empty(rows)
         score.fill(-np.inf)
         empty = np.zeros(rows, dtype=bool)
@@ -372,8 +365,6 @@ def _best_comb(
     cell_segment = segment_id[:size]
     kept = cell_col <= best_cut[cell_segment]
     kept &= ~best_odd[cell_segment] | cell_odd
-    if not stats:
-        return (kept,)
     kept_row = cell_row[kept]
     count = np.bincount(kept_row, minlength=rows)
     # Orders do not decrease along a row (f is sorted): a row's highest kept

@@ -125,6 +125,19 @@ def test_each_peak_belongs_to_one_family_only():
     assert len(claimed) == len(set(claimed))
 
 
+def test_one_peak_per_order_even_with_a_peak_out_of_reach_between_two_in_reach():
+    # Order 5 of 10 MHz: a wide peak at 49.80 MHz (reach: half its 1 MHz width) and a
+    # narrow one at 50.05 MHz (reach 0.2 %) both fall on it; 49.88 MHz, narrow and
+    # 0.24 % off, falls on nothing. The closest of the two in reach is order 5 (worked example).
+    widths_mhz = [(10, 0.02), (20, 0.02), (30, 0.02), (40, 0.02), (49.80, 1.0), (49.88, 0.02),
+                  (50.05, 0.02), (60, 0.02)]
+    peaks = [Peak(f * MHZ, 40.0, 20.0, w * MHZ) for f, w in widths_mhz]
+    (family,) = find_families(peaks, resolution_hz=1e3)
+    assert family.orders == (1, 2, 3, 4, 5, 6)
+    assert 50.05 * MHZ in family.peak_frequencies_hz
+    assert 49.80 * MHZ not in family.peak_frequencies_hz
+
+
 def test_widths_growing_with_order_flag_spread_spectrum():
     # Down-spread 1 %: harmonic n is a plateau from 0.99·n·f0 to n·f0, centred
     # at 0.995·n·f0, width 1 % of n·f0 (DOMAIN.md, spread-spectrum clocking).
