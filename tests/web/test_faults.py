@@ -35,6 +35,16 @@ from tests.web.traces import long_time_record_csv, receiver_csv
 
 pytestmark = [pytest.mark.worker, pytest.mark.slow]
 
+
+def test_private_ports_lie_below_the_range_given_to_outgoing_connections():
+    # Linux hands outgoing connections their local port from ip_local_port_range
+    # (kernel documentation, ip-sysctl); a port below it cannot be taken that way
+    # while Redis or PostgreSQL is down for a restart.
+    low = _stack._ephemeral_low()
+    ports = {_stack.free_port() for _ in range(20)}
+    assert all(1024 < port < low for port in ports), (low, sorted(ports))
+    assert len(ports) > 1  # chosen at random, not one fixed port
+
 FILES_PER_CLIENT = 10
 SETTLE_S = 90.0
 

@@ -57,8 +57,33 @@ class StackError(RuntimeError):
     """A server of the stack did not start, stop or answer in time."""
 
 
+def _ephemeral_low() -> int:
+    """The lowest port the kernel hands to outgoing connections (Linux default 32768)."""
+    try:
+        return int(Path("/proc/sys/net/ipv4/ip_local_port_range").read_text().split()[0])
+    except (OSError, ValueError, IndexError):
+        return 32768
+
+
 def free_port() -> int:
-    """A TCP port on loopback that nothing listens on now (the kernel's choice)."""
+    """A TCP port on loopback that nothing listens on now, below the ephemeral range.
+
+    The kernel's own choice (bind to port 0) comes from the range it also gives to
+    outgoing connections; a server restarted on its port in a fault test (Redis,
+    PostgreSQL) could then find that port taken as the local end of some client's
+    connection — a burst of HTTP uploads opens hundreds. Ports below the range are
+    never used that way.
+    """
+    low = _ephemeral_low()
+    if low > 12000:
+        for _ in range(50):
+            port = 10000 + secrets.randbelow(low - 11000)
+            with socket.socket() as s:
+                try:
+                    s.bind((LOOPBACK, port))
+                except OSError:
+                    continue
+                return port
     with socket.socket() as s:
         s.bind((LOOPBACK, 0))
         return s.getsockname()[1]
