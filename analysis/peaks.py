@@ -14,6 +14,7 @@ detection threshold.
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -101,12 +102,37 @@ def _bucket_bounds(frequency_hz: np.ndarray, min_points: int) -> np.ndarray:
     n = frequency_hz.size
     lo, hi = math.log10(frequency_hz[0]), math.log10(frequency_hz[-1])
     k = max(1, math.ceil((hi - lo) / _BUCKET_DECADES))
-    inner = np.searchsorted(frequency_hz, 10.0 ** (lo + _BUCKET_DECADES * np.arange(1, k)))
-    edges = _distinct_sorted(np.concatenate(([0], inner, [n])))
-    coordinate = np.concatenate(([0.0], np.cumsum(np.minimum(1.0, np.diff(edges) / min_points))))
-    buckets = max(1, int(coordinate[-1] + 1e-9))
-    cuts = np.interp(np.linspace(0.0, coordinate[-1], buckets + 1), coordinate, edges)
+    edges = np.empty(k + 1, dtype=np.intp)
+    edges[0], edges[k] = 0, n
+    edges[1:k] = np.searchsorted(frequency_hz, 10.0 ** (lo + _bucket_steps(k)))
+    edges = _distinct_sorted(edges)
+    # coordinate = [0, cumsum(min(1, diff(edges) / min_points))]
+    coordinate = np.empty(edges.size)
+    coordinate[0] = 0.0
+    advance = (edges[1:] - edges[:-1]) / min_points
+    np.minimum(advance, 1.0, out=advance)
+    np.cumsum(advance, out=coordinate[1:])
+    end = float(coordinate[-1])
+    buckets = max(1, int(end + 1e-9))
+    # np.linspace(0.0, end, buckets + 1), value for value (end > 0: the
+    # edges hold 0 and n ≥ 1, so at least one step advances).
+    grid = np.arange(buckets + 1, dtype=np.float64)
+    grid *= end / buckets
+    grid[-1] = end
+    cuts = np.interp(grid, coordinate, edges)
     return _distinct_sorted(np.rint(cuts).astype(np.intp))
+
+
+# 0.02 × (1, 2, …): the inner bucket edges' offsets in log10 f from the lowest
+# frequency, computed once (elementwise, so a slice holds the same values).
+_BUCKET_STEP_CACHE = _BUCKET_DECADES * np.arange(1, 4096)
+
+
+def _bucket_steps(k: int) -> np.ndarray:
+    """``_BUCKET_DECADES * np.arange(1, k)``."""
+    if k <= _BUCKET_STEP_CACHE.size:
+        return _BUCKET_STEP_CACHE[: k - 1]
+    return _BUCKET_DECADES * np.arange(1, k)
 
 
 def _distinct_sorted(values: np.ndarray) -> np.ndarray:
@@ -119,36 +145,80 @@ def _distinct_sorted(values: np.ndarray) -> np.ndarray:
 
 def _bucket_medians(
     level: np.ndarray, starts: np.ndarray, lengths: np.ndarray
-) -> tuple[np.ndarray, list[np.ndarray]]:
-    """Median level of each bucket, and the samples it was taken from (rows
-    of samples; +inf pads the rows of buckets with fewer points)."""
+) -> tuple[np.ndarray, list[tuple[np.ndarray, np.ndarray]]]:
+    """Median level of each bucket, and the samples it was taken from: pairs
+    of (rows of samples, which buckets those rows are); +inf pads the rows
+    of buckets with fewer points."""
     median = np.empty(starts.size)
-    samples: list[np.ndarray] = []
+    samples: list[tuple[np.ndarray, np.ndarray]] = []
     crowded = lengths > _MAX_MEDIAN_SAMPLES
-    if crowded.any():
+    n_crowded = int(np.count_nonzero(crowded))
+    if n_crowded:
         # Full rows share their middle positions: a partition suffices.
-        offsets = (_SAMPLE_FRACTIONS[None, :] * lengths[crowded, None]).astype(np.intp)
-        offsets += starts[crowded, None]
+        rows = crowded.nonzero()[0] if n_crowded < starts.size else slice(None)
+        offsets = (_SAMPLE_FRACTIONS[None, :] * lengths[rows, None]).astype(np.intp)
+        offsets += starts[rows, None]
         values = level[offsets]
         # An even count: the median is the mean of the two middle values.
         # Once partitioned at the upper one, everything left of it is the
         # smaller half, whose maximum is the lower one: one selection, not two.
         upper = _MAX_MEDIAN_SAMPLES // 2
         values.partition(upper, axis=1)
-        median[crowded] = 0.5 * (values[:, :upper].max(axis=1) + values[:, upper])
-        samples.append(values)
-    if not crowded.all():
-        count = lengths[~crowded]
-        width = int(count.max())
-        j = np.arange(width)
-        valid = j[None, :] < count[:, None]
-        values = level[starts[~crowded, None] + np.where(valid, j[None, :], 0)]
-        values[~valid] = np.inf
+        median[rows] = 0.5 * (values[:, :upper].max(axis=1) + values[:, upper])
+        samples.append((values, rows))
+    if n_crowded < starts.size:
+        rows = (~crowded).nonzero()[0] if n_crowded else slice(None)
+        count = lengths[rows]
+        shortest, longest = int(count.min()), int(count.max())
+        values = _padded_rows(level, starts[rows], count, shortest, longest)
         values.sort(axis=1)
-        rows = np.arange(count.size)
-        median[~crowded] = 0.5 * (values[rows, (count - 1) // 2] + values[rows, count // 2])
-        samples.append(values)
+        # The middle values, sorted positions (count − 1) // 2 and count // 2;
+        # when every row has the same upper one (rows of one or two lengths),
+        # a column each.
+        upper_at = shortest // 2
+        if longest // 2 == upper_at:
+            upper = values[:, upper_at]
+            if shortest == longest:
+                lower = values[:, (shortest - 1) // 2]
+            else:
+                lower = np.where(count % 2 == 1, upper, values[:, upper_at - 1])
+        else:
+            line = np.arange(count.size)
+            lower, upper = values[line, (count - 1) // 2], values[line, count // 2]
+        median[rows] = 0.5 * (lower + upper)
+        samples.append((values, rows))
     return median, samples
+
+
+def _padded_rows(
+    level: np.ndarray, first: np.ndarray, count: np.ndarray, shortest: int, width: int
+) -> np.ndarray:
+    """Rows ``level[first[r] : first[r] + count[r]]``, padded with +inf to
+    the longest, ``width`` = count.max() (count ≥ 1, shortest = count.min(),
+    ranges inside ``level``).
+
+    Copied out of a strided view whose row i is level[i : i + width] (a
+    row at a time, not element by element); the rows that start within the
+    last width − 1 points, past the view, are gathered with clipped indices.
+    Cells past a row's count hold whatever follows it and are replaced.
+    """
+    n = level.size
+    j = np.arange(width)
+    if level.flags.c_contiguous:
+        last_start = n - width
+        windows = np.ndarray(
+            (last_start + 1, width), level.dtype, level, 0, (level.itemsize, level.itemsize)
+        )
+        values = windows[np.minimum(first, last_start)]
+        late = (first > last_start).nonzero()[0]
+        if late.size:
+            values[late] = np.take(level, first[late, None] + j, mode="clip")
+    else:
+        values = np.take(level, first[:, None] + j, mode="clip")
+    if shortest < width:
+        tail = values[:, shortest:]
+        tail[j[shortest:] >= count[:, None]] = np.inf
+    return values
 
 
 def _floor_model(
@@ -162,12 +232,18 @@ def _floor_model(
     median, samples = _bucket_medians(level, starts, lengths)
     spread_db = math.nan
     if spread:
-        crowded = lengths > _MAX_MEDIAN_SAMPLES
-        rows_median = [m for m in (median[crowded], median[~crowded]) if m.size]
-        deviation = np.concatenate(
-            [np.abs(v - m[:, None]).ravel() for v, m in zip(samples, rows_median, strict=True)]
-        )
-        spread_db = _MAD_TO_SIGMA * _median_in_place(deviation[np.isfinite(deviation)])
+        # |sample − its bucket's median|, in place (the samples are not needed
+        # again). Padding and infinite levels give +inf or NaN, which sort
+        # after every finite deviation: the median of the finite ones is a
+        # median of the first `finite` order statistics of all of them.
+        parts = []
+        for values, rows in samples:
+            np.subtract(values, median[rows, None], out=values)
+            np.abs(values, out=values)
+            parts.append(values.ravel())
+        deviation = parts[0] if len(parts) == 1 else np.concatenate(parts)
+        finite = int(np.count_nonzero(np.isfinite(deviation)))
+        spread_db = _MAD_TO_SIGMA * _median_of_smallest(deviation, finite)
     log_f = np.log10(frequency_hz[np.concatenate((starts, stops - 1))])
     centre = 0.5 * (log_f[: starts.size] + log_f[starts.size :])
     return _FloorModel(starts, stops, centre, median, spread_db)
@@ -177,14 +253,23 @@ def _median_in_place(values: np.ndarray) -> float:
     """np.median of a 1-D array without NaN (the same value: the middle one,
     or the mean of the middle two), partitioning ``values`` in place instead
     of a copy; NaN for an empty one."""
-    if values.size == 0:
+    return _median_of_smallest(values, values.size)
+
+
+def _median_of_smallest(values: np.ndarray, count: int) -> float:
+    """The median of the ``count`` smallest of ``values`` (in numpy's sort
+    order, NaN last): the middle one or the mean of the middle two, the
+    same as np.median of those; NaN if ``count`` is 0. Partitions ``values``
+    in place, once: of two middle values the lower is the maximum of the
+    part left of the upper (a partition at two positions costs several times
+    one at a single position)."""
+    if count == 0:
         return math.nan
-    half = values.size // 2
-    if values.size % 2:
-        values.partition(half)
+    half = count // 2
+    values.partition(half)
+    if count % 2:
         return float(values[half])
-    values.partition([half - 1, half])
-    return float((values[half - 1] + values[half]) / 2.0)
+    return float((values[:half].max() + values[half]) / 2.0)
 
 
 def _floor_at(model: _FloorModel, frequency_hz: np.ndarray, index: np.ndarray) -> np.ndarray:
@@ -283,7 +368,7 @@ def _candidates(
     is then evaluated in those buckets only.
     """
     bucket_max = np.maximum.reduceat(level, model.starts)
-    if np.isnan(bucket_max).any():
+    if math.isnan(float(bucket_max.max())):  # np.max propagates NaN
         raise TraceError("the spectrum has levels that are not numbers (NaN)")
     padded = np.concatenate((model.median[:1], model.median, model.median[-1:]))
     lowest_floor = np.minimum(np.minimum(padded[:-2], padded[1:-1]), padded[2:])
@@ -343,53 +428,52 @@ def _topography(
     """
     n = level.size
     # np.unique, by sorting: numpy 2's np.unique hashes integers first, which
-    # for a few hundred indices costs several times the sort.
-    neighbourhood = _distinct_sorted(
-        np.sort(np.concatenate((candidates - 1, candidates, candidates + 1)))
-    )
-    neighbourhood = neighbourhood[(neighbourhood >= 0) & (neighbourhood < n)]
+    # for a few hundred indices costs several times the sort. With −1 and n
+    # (the points just outside the spectrum) as its ends.
+    fenced = np.empty(3 * candidates.size + 2, dtype=np.intp)
+    fenced[0], fenced[1] = -1, n
+    np.subtract(candidates, 1, out=fenced[2 : candidates.size + 2])
+    fenced[candidates.size + 2 : 2 * candidates.size + 2] = candidates
+    np.add(candidates, 1, out=fenced[2 * candidates.size + 2 :])
+    fenced.sort()
+    fenced = _distinct_sorted(fenced)
+    neighbourhood = fenced[1:-1]
     floor = _floor_at(model, frequency_hz, neighbourhood)
     clipped = np.maximum(level[neighbourhood], floor)
 
     # The stretches left out: between neighbourhoods, and before the first
-    # and after the last. Each becomes one point: its lowest level, clipped
-    # at the lower floor of its two ends.
-    gap_after = (np.diff(neighbourhood) > 1).nonzero()[0]
-    gap_start = neighbourhood[gap_after] + 1
-    gap_stop = neighbourhood[gap_after + 1]
-    gap_floor = np.minimum(floor[gap_after], floor[gap_after + 1])
-    positions = gap_after + 1
-    if neighbourhood[0] > 0:
-        gap_start = np.concatenate(([0], gap_start))
-        gap_stop = np.concatenate(([neighbourhood[0]], gap_stop))
-        gap_floor = np.concatenate((floor[:1], gap_floor))
-        positions = np.concatenate(([0], positions))
-    if neighbourhood[-1] < n - 1:
-        gap_start = np.append(gap_start, neighbourhood[-1] + 1)
-        gap_stop = np.append(gap_stop, n)
-        gap_floor = np.append(gap_floor, floor[-1])
-        positions = np.append(positions, neighbourhood.size)
+    # and after the last (between the fences and the neighbourhoods). Each
+    # becomes one point: its lowest level, clipped at the lower floor of its
+    # two ends (of its one end at the spectrum's ends). Gap g lies between
+    # fenced[g] and fenced[g + 1], i.e. before neighbourhood point g.
+    gap = ((fenced[1:] - fenced[:-1]) > 1).nonzero()[0]
+    gap_start = fenced[gap] + 1
+    gap_stop = fenced[gap + 1]
+    fenced_floor = np.empty(floor.size + 2)
+    fenced_floor[1:-1] = floor
+    fenced_floor[0], fenced_floor[-1] = floor[0], floor[-1]
+    gap_floor = np.minimum(fenced_floor[gap], fenced_floor[gap + 1])
     gap_value = np.maximum(_stretch_minima(level, gap_start, gap_stop), gap_floor)
-    # np.insert(clipped, positions, gap_value) and np.insert(neighbourhood,
-    # positions, -1), without its argument handling: positions increase
-    # strictly, so inserted value i lands at positions[i] + i.
-    total = clipped.size + positions.size
-    inserted = positions + np.arange(positions.size)
+    # np.insert(clipped, gap, gap_value) and np.insert(arange(size), gap, -1),
+    # without its argument handling: gap increases strictly, so inserted
+    # value i lands at gap[i] + i.
+    total = clipped.size + gap.size
+    inserted = gap + np.arange(gap.size)
     kept = np.ones(total, dtype=bool)
     kept[inserted] = False
     compressed = np.empty(total)
     compressed[kept] = clipped
     compressed[inserted] = gap_value
-    origin = np.empty(total, dtype=neighbourhood.dtype)
-    origin[kept] = neighbourhood
+    origin = np.empty(total, dtype=np.intp)  # position in the neighbourhood
+    origin[kept] = np.arange(neighbourhood.size)
     origin[inserted] = -1
 
     maxima, _ = scipy.signal.find_peaks(compressed)
-    maxima = maxima[origin[maxima] >= 0]
+    at = origin[maxima]
+    real = at >= 0
+    maxima, at = maxima[real], at[real]
     prominence = scipy.signal.peak_prominences(compressed, maxima)[0]
-    index = origin[maxima]
-    peak_floor = floor[np.searchsorted(neighbourhood, index)]
-    return index, prominence, peak_floor
+    return neighbourhood[at], prominence, floor[at]
 
 
 # Widths are searched within ±64 points, then ±512, ±4096, ±32,768 and
@@ -409,10 +493,22 @@ def _width_bounds(
     edge stays down), each end interpolated linearly between the last point
     above and the first below. Runs longer than ±65,536 points are cut there.
     """
-    left = np.empty(index.size)
-    right = np.empty(index.size)
-    todo = np.arange(index.size)
-    for half in _WIDTH_WINDOWS:
+    first = _WIDTH_WINDOWS[0]
+    if index.size <= max(1, _WIDTH_CELLS // (2 * first + 1)):
+        # The first round in one chunk (usually every width is found in it):
+        # its results are the answer for the rows it finishes, and the later
+        # rounds overwrite the others.
+        done, left, right = _width_round(level, index, reference, bridge_points, first)
+        if done.all():
+            return left, right
+        todo = (~done).nonzero()[0]
+        windows = _WIDTH_WINDOWS[1:]
+    else:
+        left = np.empty(index.size)
+        right = np.empty(index.size)
+        todo = np.arange(index.size)
+        windows = _WIDTH_WINDOWS
+    for half in windows:
         final = half == _WIDTH_WINDOWS[-1]
         rows_per_chunk = max(1, _WIDTH_CELLS // (2 * half + 1))
         unfinished = []
@@ -431,6 +527,19 @@ def _width_bounds(
     return left, right
 
 
+@functools.cache
+def _window_offsets(half: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """np.arange(-half, half + 1), np.arange(2·half + 1), and per column what
+    an unbroken cell counts as in the search for breaks (−1 left of the
+    peak, 2·half + 1 right of it: never the nearest break); read-only."""
+    size = 2 * half + 1
+    offsets, columns = np.arange(-half, half + 1), np.arange(size)
+    no_break = np.where(columns < half, -1, size)
+    for array in (offsets, columns, no_break):
+        array.flags.writeable = False
+    return offsets, columns, no_break
+
+
 def _width_round(
     level: np.ndarray,
     index: np.ndarray,
@@ -440,49 +549,71 @@ def _width_round(
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """One window size of _width_bounds: (found both ends, left, right)."""
     n = level.size
-    offsets = np.arange(-half, half + 1)
-    columns = np.arange(offsets.size)
+    offsets, columns, no_break = _window_offsets(half)
+    size = offsets.size
     position = index[:, None] + offsets[None, :]
-    inside = (position >= 0) & (position < n)
-    values = level[np.minimum(np.maximum(position, 0), n - 1)]
-    ref = reference[:, None]
-    above = inside & (values > ref)
-    previous_above = np.maximum.accumulate(np.where(above, columns, -1), axis=1)
-    reversed_next = np.where(above, columns, offsets.size)[:, ::-1]
-    next_above = np.minimum.accumulate(reversed_next, axis=1)[:, ::-1]
-    bridged = (previous_above >= 0) & (next_above < offsets.size)
-    bridged &= next_above - previous_above - 1 <= bridge_points[:, None]
-    broken = ~(above | (inside & bridged))
-    left_break = np.max(np.where(broken[:, :half], columns[:half], -1), axis=1)
-    right_break = np.min(np.where(broken[:, half + 1 :], columns[half + 1 :], offsets.size), axis=1)
+    # Rows whose window lies inside the spectrum and short of its ends
+    # (usually all) need no mask of the cells inside, no clipped gathers, and
+    # are done exactly when both breaks are found.
+    all_inside = int(index.min()) - half > 0 and int(index.max()) + half < n - 1
+    if all_inside:
+        values = level[position]
+        above = values > reference[:, None]
+    else:
+        values = np.take(level, position, mode="clip")
+        above = values > reference[:, None]
+        above &= (position >= 0) & (position < n)
+    # A dip is bridged where the nearest points above on both sides are at
+    # most bridge_points + 1 columns apart. The sentinels for "none on this
+    # side" are so far out that a gap to them is never bridged (bridge_points
+    # capped at the window size, which no gap inside it exceeds), and cells
+    # outside the spectrum, never above, have none on their outer side.
+    far = 2 * size + 2
+    previous_above = np.maximum.accumulate(np.where(above, columns, -far), axis=1)
+    next_above = np.minimum.accumulate(np.where(above, columns, far)[:, ::-1], axis=1)[:, ::-1]
+    gap_limit = np.minimum(bridge_points, size) + 1
+    unbroken = next_above - previous_above <= gap_limit[:, None]
+    unbroken |= above
+    breaks = np.where(unbroken, no_break, columns)
+    left_break = breaks[:, :half].max(axis=1)
+    right_break = breaks[:, half + 1 :].min(axis=1)
+    left_found = left_break >= 0
+    right_found = right_break < size
     # Done when a break is found on each side, or the window reaches the end.
-    done = ((left_break >= 0) | (index - half <= 0)) & (
-        (right_break < offsets.size) | (index + half >= n - 1)
-    )
+    if all_inside:
+        done = left_found & right_found
+    else:
+        done = (left_found | (index - half <= 0)) & (right_found | (index + half >= n - 1))
 
-    rows = np.arange(index.size)
-    lb = np.maximum(left_break, 0)
-    rb = np.minimum(right_break, offsets.size - 1)
-    lb_value, lb_next = values[rows, lb], values[rows, np.minimum(lb + 1, offsets.size - 1)]
-    rb_value, rb_prev = values[rows, rb], values[rows, np.maximum(rb - 1, 0)]
+    # The break columns (left < half < right) and their neighbours towards
+    # the peak, as indices into the spectrum: row r, column c is point
+    # index[r] + c − half.
+    edge = np.empty((2, index.size), dtype=np.intp)
+    np.maximum(left_break, 0, out=edge[0])
+    np.minimum(right_break, size - 1, out=edge[1])
+    edge -= half
+    edge += index
+    neighbour = edge + _TOWARDS_PEAK
+    if all_inside:
+        edge_value, neighbour_value = level[edge], level[neighbour]
+    else:
+        edge_value = np.take(level, edge, mode="clip")
+        neighbour_value = np.take(level, neighbour, mode="clip")
     with np.errstate(divide="ignore", invalid="ignore"):
-        left_fraction = np.minimum(
-            np.maximum((reference - lb_value) / (lb_next - lb_value), 0.0), 1.0
-        )
-        right_fraction = np.minimum(
-            np.maximum((reference - rb_value) / (rb_prev - rb_value), 0.0), 1.0
-        )
-    left_position = np.where(
-        (left_break >= 0) & inside[rows, lb],
-        position[rows, lb] + left_fraction,
-        np.maximum(position[:, 0], 0),
-    )
-    right_position = np.where(
-        (right_break < offsets.size) & inside[rows, rb],
-        position[rows, rb] - right_fraction,
-        np.minimum(position[:, -1], n - 1),
-    )
+        fraction = (reference - edge_value) / (neighbour_value - edge_value)
+    np.maximum(fraction, 0.0, out=fraction)
+    np.minimum(fraction, 1.0, out=fraction)
+    if not all_inside:
+        left_found &= edge[0] >= 0
+        right_found &= edge[1] < n
+    left_position = np.where(left_found, edge[0] + fraction[0], np.maximum(index - half, 0))
+    right_position = np.where(right_found, edge[1] - fraction[1], np.minimum(index + half, n - 1))
     return done, left_position, right_position
+
+
+# Offsets from a width's break column to its neighbour towards the peak.
+_TOWARDS_PEAK = np.array([[1], [-1]], dtype=np.intp)
+_TOWARDS_PEAK.flags.writeable = False
 
 
 def _refine(
@@ -583,7 +714,12 @@ def _merge_close(
     if frequency_hz.size < 2:
         return np.arange(frequency_hz.size)
     limit = np.maximum(resolution_hz[:-1], resolution_hz[1:]) * (1 + 1e-9)
-    group = np.concatenate(([0], np.cumsum(np.diff(frequency_hz) > limit)))
+    apart = (frequency_hz[1:] - frequency_hz[:-1]) > limit
+    if apart.all():  # every peak its own group
+        return np.arange(frequency_hz.size)
+    group = np.empty(frequency_hz.size, dtype=np.intp)
+    group[0] = 0
+    np.cumsum(apart, out=group[1:])
     order = np.lexsort((-level, group))
     first = np.concatenate(([True], group[order][1:] != group[order][:-1]))
     return np.sort(order[first])
@@ -656,9 +792,11 @@ def find_peaks(
     # stands that high) is part of one structure — a plateau, a lobe — and
     # its own dip must be as significant as a detection, not just 6 dB:
     # noise on a plateau makes 6 dB dips all the time.
-    joined = level[index] - prominence >= floor + threshold_db
+    top = level[index]
+    detected = floor + threshold_db
+    joined = top - prominence >= detected
     required_db = np.where(joined, threshold_db, prominence_db)
-    keep = (prominence >= required_db) & (level[index] >= floor + threshold_db)
+    keep = (prominence >= required_db) & (top >= detected)
     keep &= (index > 0) & (index < n - 1)
     index, prominence, floor = index[keep], prominence[keep], floor[keep]
     if index.size == 0:
@@ -675,9 +813,9 @@ def find_peaks(
     left_position, right_position = _width_bounds(
         level, index, level[index] - WIDTH_DROP_DB, bridge_points
     )
-    width_hz = _fractional_frequency(frequency_hz, right_position) - _fractional_frequency(
-        frequency_hz, left_position
-    )
+    # Both ends in one pass: [right positions, left positions].
+    ends_hz = _fractional_frequency(frequency_hz, np.concatenate((right_position, left_position)))
+    width_hz = ends_hz[: index.size] - ends_hz[index.size :]
 
     if spectrum.from_fft:
         enbw_bins = None
@@ -712,14 +850,16 @@ def find_peaks(
         most_prominent = np.argsort(-prominence[survivors], kind="stable")[:max_peaks]
         survivors = np.sort(survivors[most_prominent])
 
+    # Python floats by tolist (the same values as float() of each element),
+    # the fields in Peak's order.
     return tuple(
-        Peak(
-            frequency_hz=float(peak_frequency[i]),
-            level=float(peak_level[i]),
-            prominence_db=float(prominence[i]),
-            width_hz=float(width_hz[i]),
+        map(
+            Peak,
+            peak_frequency[survivors].tolist(),
+            peak_level[survivors].tolist(),
+            prominence[survivors].tolist(),
+            width_hz[survivors].tolist(),
         )
-        for i in survivors
     )
 
 
