@@ -157,7 +157,11 @@ def _ratio(measured_s: float, reference_s: float) -> float:
 def _repeats(size: int, quick: bool) -> int:
     if quick:
         return 3 if size < 1_000_000 else 2
-    return 7 if size < 1_000_000 else (5 if size < 10_000_000 else 3)
+    # Small sizes take milliseconds: many rounds cost nothing and find an
+    # undisturbed one; at 1e7 a round takes about a second.
+    if size < 1_000_000:
+        return 25
+    return 9 if size < 10_000_000 else 3
 
 
 @dataclass(frozen=True)
