@@ -39,8 +39,9 @@ How a family is chosen (greedy, best first):
 5. The chosen family's peaks leave every other candidate's matches and the
    choice repeats, up to ``max_families`` times, on the same refined
    candidates: they are not refined again without those peaks. A fresh
-   search per family found the same families almost always and cost twice
-   as much (DEVELOPERS.md, "Harmonic families").
+   search per family gave the same families for 570 of 600 random peak
+   sets, recovered no more comb peaks and cost twice as much
+   (DEVELOPERS.md, "Harmonic families").
 
 Spread spectrum: a spread clock turns each harmonic into a plateau whose width
 grows with the order (±0.5 % or down-spread 1 % of n·f0). A family is flagged
