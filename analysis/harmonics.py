@@ -54,12 +54,14 @@ least 5 resolution steps (when the resolution is known).
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 
 import numpy as np
 from numpy.typing import ArrayLike
 from scipy import special
 
+from analysis.arrays import distinct_sorted
 from analysis.errors import TraceError
 from analysis.types import Family, Peak
 
@@ -112,6 +114,9 @@ def find_families(
     weight = 1.0 / np.maximum(tol, 1e-9 * f) ** 2
 
     f0 = _candidates(f, prominence_db[by_frequency])
+    # Order 0 (f/f0 < 0.5) is within tolerance only of a peak whose tolerance
+    # exceeds its frequency; _match can skip that test when there is none.
+    order_zero = bool((f <= tol).any())
     cols = f.size
     # The search works on the matched cells of the candidates × peaks grid
     # (flat indices, row-major): a few per candidate. Each step is a handful
@@ -119,52 +124,63 @@ def find_families(
     # candidates their count, not their size, is what the search costs.
     # A candidate matching no peak keeps its f0 through the refinement
     # (nothing to fit), so it matches nothing and never makes a family.
-    cells, cell_order = _match(f0, f, tol, max_order)
+    cells, cell_order = _match(f0, f, tol, max_order, order_zero)
     for refinement in range(_REFINE_PASSES):
         if refinement > 0:
             # Candidates refined from the same matches now share their f0
             # exactly, and everything from here on depends on f0 alone:
             # keep one of each (ties between them are ties in everything).
-            f0 = np.unique(f0)
-            cells, cell_order = _match(f0, f, tol, max_order)
+            f0.sort()
+            f0 = distinct_sorted(f0)
+            cells, cell_order = _match(f0, f, tol, max_order, order_zero)
         f0 = _refine(f0, f, weight, cells, cell_order)
-    cells, cell_order = _match(f0, f, tol, max_order)
+    cells, cell_order = _match(f0, f, tol, max_order, order_zero)
+    # From here on a candidate only loses matches: one with fewer than
+    # min_peaks can never make a family, and its cells are dropped.
+    cells, cell_order = _viable(cells, cell_order, cells // cols, f0.size, min_peaks)
 
     # Greedy choice on these refined combs: the best family claims its peaks,
     # which leave every other comb, and the choice repeats.
     claimed = np.zeros(cols, dtype=bool)
     families: list[Family] = []
-    while len(families) < max_families and cols - np.count_nonzero(claimed) >= min_peaks:
+    # Every candidate left has at least min_peaks unclaimed peaks among its
+    # cells, so the search goes on while any is left.
+    while len(families) < max_families and cells.size:
         active = ~claimed
-        kept, score, missing, highest, odd, count = _best_comb(cells, cell_order, f0.size, cols)
-        # The chance test only for the combs that pass the cheaper two (row
-        # by row, so the same figures as for all rows at once).
+        # The combs of the candidates with cells (`candidate`), and their figures.
+        kept, candidate, score, missing, highest, odd, count = _best_comb(cells, cell_order, cols)
+        # The chance test only for the combs that pass the cheaper two (comb
+        # by comb, so the same figures as for all of them at once).
         idx = ((count >= min_peaks) & (missing <= count)).nonzero()[0]
         if idx.size == 0:
             break
-        expected = _chance_matches(f0[idx], f, tol, active, highest[idx], odd[idx])
-        idx = idx[_poisson_sf(count[idx] - 1, expected) <= false_alarm]
+        trial_f0 = f0[candidate[idx]]
+        expected = _chance_matches(trial_f0, f, tol, active, highest[idx], odd[idx])
+        passed = _poisson_sf(count[idx] - 1, expected) <= false_alarm
+        idx, trial_f0 = idx[passed], trial_f0[passed]
         if idx.size == 0:
             break
         # Best score, ties to the higher fundamental (the simpler comb).
-        best = idx[np.lexsort((-f0[idx], -score[idx]))[0]]
+        best = int(candidate[idx[np.lexsort((-trial_f0, -score[idx]))[0]]])
         kept_cells, kept_order = cells[kept], cell_order[kept]
         mine = kept_cells // cols == best
         columns = kept_cells[mine] - best * cols  # ascending: the row's peaks by frequency
         n = kept_order[mine]
         fundamental = float(_refine(f0[best : best + 1], f, weight, columns, n)[0])
+        orders = tuple(n.tolist())
         families.append(
             Family(
                 fundamental_hz=fundamental,
-                orders=tuple(int(v) for v in n),
-                odd_only=bool(n.size >= 3 and np.all(n % 2 == 1)),
+                orders=orders,
+                odd_only=len(orders) >= 3 and all(v % 2 == 1 for v in orders),
                 spread_spectrum=_is_spread(n, width[columns], res[columns], fundamental),
-                peak_frequencies_hz=tuple(float(v) for v in f[columns]),
+                peak_frequencies_hz=tuple(f[columns].tolist()),
             )
         )
         claimed[columns] = True
-        free = ~claimed[cells % cols]
-        cells, cell_order = cells[free], cell_order[free]
+        row, col = np.divmod(cells, cols)
+        free = ~claimed[col]
+        cells, cell_order = _viable(cells[free], cell_order[free], row[free], f0.size, min_peaks)
     return tuple(families)
 
 
@@ -183,19 +199,26 @@ def _check_options(
 
 
 def _peak_arrays(peaks: Sequence[Peak]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Frequencies, prominences (an unknown one counts as 0 dB) and widths."""
     # One pass over the peaks; each column is then a contiguous copy.
     table = np.array([(p.frequency_hz, p.prominence_db, p.width_hz) for p in peaks], dtype=float)
     frequency_hz, prominence_db, width_hz = table.T.copy()
-    bad = ~(np.isfinite(frequency_hz) & (frequency_hz > 0))
-    if bad.any():
+    # min propagates NaN, which fails the comparison like a frequency ≤ 0.
+    if not (frequency_hz.min() > 0 and frequency_hz.max() < math.inf):
+        bad = ~(np.isfinite(frequency_hz) & (frequency_hz > 0))
         i = int(np.flatnonzero(bad)[0])
         raise TraceError(
             f"peak {i + 1}: frequency must be a positive number, got {frequency_hz[i]}"
         )
-    return frequency_hz, np.nan_to_num(prominence_db, nan=0.0), width_hz
+    prominence_db[np.isnan(prominence_db)] = 0.0
+    return frequency_hz, prominence_db, width_hz
 
 
 def _per_peak(value: float | ArrayLike, size: int) -> np.ndarray:
+    if isinstance(value, int | float):  # the usual case: one step for every peak
+        if not (0 <= value < math.inf):
+            raise TraceError("resolution must be a non-negative frequency step in Hz")
+        return np.full(size, float(value))
     arr = np.asarray(value, dtype=float)
     if arr.ndim == 0:
         arr = np.full(size, float(arr))
@@ -207,23 +230,35 @@ def _per_peak(value: float | ArrayLike, size: int) -> np.ndarray:
 
 
 def _candidates(f: np.ndarray, prominence_db: np.ndarray) -> np.ndarray:
-    """Trial fundamentals seeded from the strongest peaks (see module docstring)."""
-    seeds = np.sort(f[np.argsort(-prominence_db, kind="stable")[:_MAX_SEEDS]])
-    divided = (seeds[:, None] / np.arange(1, _MAX_DIVISOR + 1)[None, :]).ravel()
-    spacing = np.diff(seeds)
+    """Trial fundamentals seeded from the strongest peaks (see module docstring),
+    ascending and distinct. ``f`` is sorted."""
+    if f.size <= _MAX_SEEDS:
+        seeds = f  # every peak is a seed
+    else:
+        seeds = np.sort(f[np.argsort(-prominence_db, kind="stable")[:_MAX_SEEDS]])
+    divided = (seeds[:, None] / _DIVISORS).ravel()
+    spacing = seeds[1:] - seeds[:-1]
     spacing = spacing[spacing > 0]
-    return np.unique(np.concatenate([divided, spacing, spacing / 2.0]))
+    trial = np.concatenate([divided, spacing, spacing / 2.0])
+    trial.sort()
+    return distinct_sorted(trial)
+
+
+# 1 … _MAX_DIVISOR as a row, read-only.
+_DIVISORS = np.arange(1, _MAX_DIVISOR + 1, dtype=np.float64)[None, :]
+_DIVISORS.flags.writeable = False
 
 
 def _match(
-    f0: np.ndarray, f: np.ndarray, tol: np.ndarray, max_order: int
+    f0: np.ndarray, f: np.ndarray, tol: np.ndarray, max_order: int, order_zero: bool = True
 ) -> tuple[np.ndarray, np.ndarray]:
     """The matched cells of the (candidate, peak) grid, one peak per order (the closest).
 
     Returns their flat indices (row-major, ascending) and their orders: peak f
     matches candidate f0 at order n = round(f/f0) when 1 ≤ n ≤ max_order and
     |f − n·f0| ≤ its ``tol``; of peaks sharing an order the closest is kept
-    (the first on exact ties).
+    (the first on exact ties). ``order_zero`` False says no f ≤ its tol, so
+    no cell of order 0 (|f − 0| = f) is within tolerance.
     """
     orders = np.divide(f[None, :], f0[:, None])
     np.rint(orders, out=orders)  # whole numbers, so the tests below are exact
@@ -233,7 +268,9 @@ def _match(
     cells = (deviation <= tol).ravel().nonzero()[0]
     # 1 ≤ n ≤ max_order, tested on the few cells within reach only.
     cell_order = orders.ravel()[cells]
-    in_range = (cell_order >= 1) & (cell_order <= max_order)
+    in_range = cell_order <= max_order
+    if order_zero:
+        in_range &= cell_order >= 1
     cells = cells[in_range]
     cell_order = cell_order[in_range].astype(np.int64)
     if cells.size < 2:
@@ -261,6 +298,14 @@ def _match(
     return cells[chosen], cell_order[chosen]
 
 
+def _viable(
+    cells: np.ndarray, cell_order: np.ndarray, row: np.ndarray, rows: int, min_peaks: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """The cells of the candidates (``row``: each cell's) with at least min_peaks cells."""
+    enough = (np.bincount(row, minlength=rows) >= min_peaks)[row]
+    return cells[enough], cell_order[enough]
+
+
 def _refine(
     f0: np.ndarray, f: np.ndarray, weight: np.ndarray, cells: np.ndarray, orders: np.ndarray
 ) -> np.ndarray:
@@ -282,9 +327,7 @@ def _refine(
     return refined
 
 
-def _best_comb(
-    cells: np.ndarray, cell_order: np.ndarray, rows: int, cols: int
-) -> tuple[np.ndarray, ...]:
+def _best_comb(cells: np.ndarray, cell_order: np.ndarray, cols: int) -> tuple[np.ndarray, ...]:
     """The simplest comb inside each candidate's matches.
 
     Two readings are scored: all matched orders, or the odd ones only (a stray
@@ -293,34 +336,23 @@ def _best_comb(
     score = matched − 0.5 × missing, where missing counts the orders (odd
     orders for an odd-only comb) between the lowest and the cut that have no
     peak: a chance match far above the family would otherwise add a long run
-    of holes. ``cells`` (ascending flat indices into the rows × cols grid)
-    and ``cell_order`` are _match's. Returns which cells are kept and, per
-    row, the score, the missing count, the highest kept order, whether the
+    of holes. ``cells`` (ascending flat indices into the candidates × cols
+    grid, at least one) and ``cell_order`` are _match's. Returns which cells
+    are kept and, for each candidate that has cells (ascending, the first
+    array), the score, the missing count, the highest kept order, whether the
     comb is odd-only and how many cells it keeps.
     """
     # A row's matches are a contiguous segment of the cells, so counts along
     # a row are ranks within its segment and per-row maxima a reduceat. Both
     # readings go through at once: the odd-only reading's cells follow the
-    # others, as rows numbered from `rows` on. The choice between the two is
-    # made per segment (the rows with cells), and spread over all rows only
-    # for the statistics.
+    # others, as rows numbered from `rows` on (past every real row). The
+    # choice between the two is made per segment of the all-orders reading:
+    # one per candidate with cells.
     size = cells.size
     cell_row = cells // cols
     cell_col = cells - cell_row * cols
     cell_odd = (cell_order & 1) == 1  # orders are ≥ 1
-    if size == 0:
-        kept = np.zeros(0, dtype=bool)
-        score = np.empty(rows)
-        score.fill(-np.inf)
-        empty = np.zeros(rows, dtype=bool)
-        return (
-            kept,
-            score,
-            np.zeros(rows),
-            np.zeros(rows, cell_order.dtype),
-            empty,
-            np.zeros(rows, dtype=np.intp),
-        )
+    rows = int(cell_row[-1]) + 1
     odd_cells = cell_odd.nonzero()[0]
     total = size + odd_cells.size
     chosen = np.concatenate((np.arange(size), odd_cells))
@@ -350,14 +382,15 @@ def _best_comb(
     # Segments 0 … plain − 1 are the all-orders reading of the rows with
     # cells (ascending); the odd-only ones follow, for a subset of those rows.
     plain = int(segment_id[size - 1]) + 1
-    plain_rows = cell_row[segment[:plain]]
-    best_score = segment_best[:plain].copy()
-    best_cut = segment_cut[:plain].copy()
+    candidate = cell_row[segment[:plain]]
+    best_score = segment_best[:plain]
+    best_cut = segment_cut[:plain]
     best_odd = np.zeros(plain, dtype=bool)
     if segment.size > plain:
         odd_best = segment_best[plain:]
-        into = np.searchsorted(plain_rows, row[segment[plain:]] - rows)
-        # The odd-only reading where strictly better.
+        into = np.searchsorted(candidate, row[segment[plain:]] - rows)
+        # The odd-only reading where strictly better (written over the
+        # all-orders figures: those views are not needed again).
         better = odd_best > best_score[into]
         better_into = into[better]
         best_score[better_into] = odd_best[better]
@@ -366,23 +399,18 @@ def _best_comb(
     cell_segment = segment_id[:size]
     kept = cell_col <= best_cut[cell_segment]
     kept &= ~best_odd[cell_segment] | cell_odd
-    kept_row = cell_row[kept]
-    count = np.bincount(kept_row, minlength=rows)
-    # Orders do not decrease along a row (f is sorted): a row's highest kept
+    # Every comb keeps at least its first cell (the cut is at or above it),
+    # so every segment has kept cells, in order.
+    kept_segment = cell_segment[kept]
+    count = np.bincount(kept_segment, minlength=plain)
+    # Orders do not decrease along a row (f is sorted): a comb's highest kept
     # order is that of its last kept cell.
-    highest = np.zeros(rows, dtype=cell_order.dtype)
-    last = np.empty(kept_row.size, dtype=bool)
-    last[-1:] = True
-    np.not_equal(kept_row[1:], kept_row[:-1], out=last[:-1])
-    highest[kept_row[last]] = cell_order[kept][last]
-    row_score = np.empty(rows)
-    row_score.fill(-np.inf)
-    row_score[plain_rows] = best_score
-    missing = np.zeros(rows)
-    missing[plain_rows] = (count[plain_rows] - best_score) / _GAP_PENALTY
-    row_odd = np.zeros(rows, dtype=bool)
-    row_odd[plain_rows] = best_odd
-    return kept, row_score, missing, highest, row_odd, count
+    last = np.empty(kept_segment.size, dtype=bool)
+    last[-1] = True
+    np.not_equal(kept_segment[1:], kept_segment[:-1], out=last[:-1])
+    highest = cell_order[kept][last]
+    missing = (count - best_score) / _GAP_PENALTY
+    return kept, candidate, best_score, missing, highest, best_odd, count
 
 
 def _poisson_sf(k: np.ndarray, mu: np.ndarray) -> np.ndarray:
@@ -404,10 +432,13 @@ def _chance_matches(
 ) -> np.ndarray:
     """Expected number of peaks up to the family's highest order that would
     fall on one of its orders by chance (an odd-only comb offers half the slots)."""
-    inside = active[None, :] & (f[None, :] <= (highest[:, None] + 0.5) * f0[:, None])
-    slots = np.where(odd_only, 1.0, 2.0)[:, None]
-    p = np.minimum(1.0, slots * tol[None, :] / f0[:, None])
-    p[~inside] = 0.0
+    inside = f[None, :] <= ((highest + 0.5) * f0)[:, None]
+    inside &= active
+    # tol/f0 × slots (1 or 2, so exactly slots·tol/f0), at most 1.
+    p = tol[None, :] / f0[:, None]
+    p *= (2.0 - odd_only)[:, None]
+    np.minimum(p, 1.0, out=p)
+    p *= inside
     return p.sum(axis=1)
 
 

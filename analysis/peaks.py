@@ -23,6 +23,7 @@ import scipy.signal
 import scipy.special
 from numpy.typing import ArrayLike
 
+from analysis.arrays import distinct_sorted
 from analysis.errors import TraceError
 from analysis.fft import leakage_envelope_db
 from analysis.types import Peak, Spectrum
@@ -105,7 +106,7 @@ def _bucket_bounds(frequency_hz: np.ndarray, min_points: int) -> np.ndarray:
     edges = np.empty(k + 1, dtype=np.intp)
     edges[0], edges[k] = 0, n
     edges[1:k] = np.searchsorted(frequency_hz, 10.0 ** (lo + _bucket_steps(k)))
-    edges = _distinct_sorted(edges)
+    edges = distinct_sorted(edges)
     # coordinate = [0, cumsum(min(1, diff(edges) / min_points))]
     coordinate = np.empty(edges.size)
     coordinate[0] = 0.0
@@ -120,7 +121,7 @@ def _bucket_bounds(frequency_hz: np.ndarray, min_points: int) -> np.ndarray:
     grid *= end / buckets
     grid[-1] = end
     cuts = np.interp(grid, coordinate, edges)
-    return _distinct_sorted(np.rint(cuts).astype(np.intp))
+    return distinct_sorted(np.rint(cuts).astype(np.intp))
 
 
 # 0.02 × (1, 2, …): the inner bucket edges' offsets in log10 f from the lowest
@@ -133,14 +134,6 @@ def _bucket_steps(k: int) -> np.ndarray:
     if k <= _BUCKET_STEP_CACHE.size:
         return _BUCKET_STEP_CACHE[: k - 1]
     return _BUCKET_DECADES * np.arange(1, k)
-
-
-def _distinct_sorted(values: np.ndarray) -> np.ndarray:
-    """np.unique of an already non-decreasing array: its first of each run."""
-    first = np.empty(values.size, dtype=bool)
-    first[:1] = True
-    np.not_equal(values[1:], values[:-1], out=first[1:])
-    return values[first]
 
 
 def _bucket_medians(
@@ -436,7 +429,7 @@ def _topography(
     fenced[candidates.size + 2 : 2 * candidates.size + 2] = candidates
     np.add(candidates, 1, out=fenced[2 * candidates.size + 2 :])
     fenced.sort()
-    fenced = _distinct_sorted(fenced)
+    fenced = distinct_sorted(fenced)
     neighbourhood = fenced[1:-1]
     floor = _floor_at(model, frequency_hz, neighbourhood)
     clipped = np.maximum(level[neighbourhood], floor)
