@@ -18,6 +18,7 @@ from typing import BinaryIO
 import numpy as np
 
 from analysis import __version__
+from analysis.arrays import distinct_sorted
 from analysis.attribution import attribute
 from analysis.envelope import envelope as decimate
 from analysis.fft import amplitude_spectrum
@@ -137,9 +138,16 @@ def peak_resolution_hz(spectrum: Spectrum, peaks: Sequence[Peak]) -> np.ndarray:
     # The step ending at point k is f[k] − f[k−1]; interpolating those steps
     # at a peak needs only the few around it, not a diff of the whole trace.
     # np.interp on that subset finds the same bracketing pair, so the same value.
-    around = np.searchsorted(frequency_hz, query)[:, None] + np.arange(-2, 3)[None, :]
-    k = np.unique(np.clip(around, 1, frequency_hz.size - 1))
+    around = np.searchsorted(frequency_hz, query)[:, None] + _AROUND
+    k = np.clip(around, 1, frequency_hz.size - 1, out=around).ravel()
+    k.sort()
+    k = distinct_sorted(k)
     return np.interp(query, frequency_hz[k], frequency_hz[k] - frequency_hz[k - 1])
+
+
+# The points around a peak whose steps peak_resolution_hz interpolates.
+_AROUND = np.arange(-2, 3)[None, :]
+_AROUND.flags.writeable = False
 
 
 def analyse_file(
