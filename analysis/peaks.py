@@ -477,47 +477,80 @@ _WIDTH_CELLS = 4_000_000
 
 
 def _width_bounds(
-    level: np.ndarray, index: np.ndarray, reference: np.ndarray, bridge_points: np.ndarray
-) -> tuple[np.ndarray, np.ndarray]:
+    level: np.ndarray,
+    index: np.ndarray,
+    reference: np.ndarray,
+    bridge_points: np.ndarray,
+    windows: tuple[int, ...] = _WIDTH_WINDOWS,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Fractional indices where the level around each peak falls below its
     reference for good: the run of points above the reference that holds
     the peak, with dips of at most ``bridge_points`` points bridged (noise on
     a plateau dips 6 dB below its highest point every few points; a genuine
     edge stays down), each end interpolated linearly between the last point
     above and the first below. Runs longer than ±65,536 points are cut there.
+
+    Searched in the half-widths ``windows`` (a run of _WIDTH_WINDOWS, in
+    order). Returns (done, left, right): ``done`` is False for the peaks
+    whose run reaches past the last of ``windows`` short of ±65,536 (their
+    ends are then cut at that window, and the rest of _WIDTH_WINDOWS finds
+    them). Each peak's result depends on its own arguments only.
     """
-    first = _WIDTH_WINDOWS[0]
+    first = windows[0]
     if index.size <= max(1, _WIDTH_CELLS // (2 * first + 1)):
         # The first round in one chunk (usually every width is found in it):
         # its results are the answer for the rows it finishes, and the later
         # rounds overwrite the others.
         done, left, right = _width_round(level, index, reference, bridge_points, first)
+        done |= first == _WIDTH_WINDOWS[-1]
         if done.all():
-            return left, right
+            return done, left, right
         todo = (~done).nonzero()[0]
-        windows = _WIDTH_WINDOWS[1:]
+        windows = windows[1:]
     else:
+        done = np.zeros(index.size, dtype=bool)
         left = np.empty(index.size)
         right = np.empty(index.size)
         todo = np.arange(index.size)
-        windows = _WIDTH_WINDOWS
     for half in windows:
         final = half == _WIDTH_WINDOWS[-1]
         rows_per_chunk = max(1, _WIDTH_CELLS // (2 * half + 1))
         unfinished = []
         for chunk in range(0, todo.size, rows_per_chunk):
             rows = todo[chunk : chunk + rows_per_chunk]
-            done, left_position, right_position = _width_round(
+            finished, left[rows], right[rows] = _width_round(
                 level, index[rows], reference[rows], bridge_points[rows], half
             )
-            done |= final
-            left[rows[done]] = left_position[done]
-            right[rows[done]] = right_position[done]
-            unfinished.append(rows[~done])
+            finished |= final
+            done[rows] = finished
+            unfinished.append(rows[~finished])
         todo = np.concatenate(unfinished)
         if todo.size == 0:
             break
-    return left, right
+    return done, left, right
+
+
+def _finish_widths(
+    level: np.ndarray,
+    index: np.ndarray,
+    bridge_points: np.ndarray,
+    rows: np.ndarray,
+    done: np.ndarray,
+    left: np.ndarray,
+    right: np.ndarray,
+) -> None:
+    """The rest of the width search (after its first window) for ``rows``
+    not yet done, in place."""
+    pending = rows[~done[rows]]
+    if pending.size == 0:
+        return
+    done[pending], left[pending], right[pending] = _width_bounds(
+        level,
+        index[pending],
+        level[index[pending]] - WIDTH_DROP_DB,
+        bridge_points[pending],
+        _WIDTH_WINDOWS[1:],
+    )
 
 
 @functools.cache
@@ -803,18 +836,32 @@ def find_peaks(
     else:
         resolution = step_hz
     bridge_points = np.maximum(2, np.rint(2.0 * resolution / step_hz)).astype(np.intp)
-    left_position, right_position = _width_bounds(
-        level, index, level[index] - WIDTH_DROP_DB, bridge_points
+    # Widths within ±64 points first; the longer runs only for the peaks
+    # kept in the end. Many deep-dipped maxima on one long run (every other
+    # point of a plateau) would otherwise search that run once per maximum.
+    width_done, left_position, right_position = _width_bounds(
+        level, index, level[index] - WIDTH_DROP_DB, bridge_points, _WIDTH_WINDOWS[:1]
     )
-    # Both ends in one pass: [right positions, left positions].
-    ends_hz = _fractional_frequency(frequency_hz, np.concatenate((right_position, left_position)))
-    width_hz = ends_hz[: index.size] - ends_hz[index.size :]
 
     if spectrum.from_fft:
         enbw_bins = None
         bin_hz = 0.5 * _median_in_place(step_hz.copy())
         if spectrum.rbw_hz is not None:
             enbw_bins = spectrum.rbw_hz / bin_hz
+            if 2.0 * enbw_bins >= _WIDTH_WINDOWS[0]:
+                # _refine tells sines (at most 2 ENBW wide) from wider peaks:
+                # here a width cut at ±64 points could still be a sine's.
+                _finish_widths(
+                    level,
+                    index,
+                    bridge_points,
+                    np.arange(index.size),
+                    width_done,
+                    left_position,
+                    right_position,
+                )
+        # A run cut at ±64 points is wider than 64 points, as its whole
+        # width would be: no sine either way.
         peak_frequency, peak_level = _refine(
             frequency_hz, level, index, floor, right_position - left_position, enbw_bins
         )
@@ -827,13 +874,18 @@ def find_peaks(
                 enbw_bins,
             )
             keep = ~leaked
-            index, prominence, peak_frequency, peak_level, width_hz, resolution = (
+            index, prominence, peak_frequency, peak_level, resolution = (
                 index[keep],
                 prominence[keep],
                 peak_frequency[keep],
                 peak_level[keep],
-                width_hz[keep],
                 resolution[keep],
+            )
+            bridge_points, width_done, left_position, right_position = (
+                bridge_points[keep],
+                width_done[keep],
+                left_position[keep],
+                right_position[keep],
             )
     else:
         peak_frequency, peak_level = frequency_hz[index], level[index].copy()
@@ -842,6 +894,14 @@ def find_peaks(
     if survivors.size > max_peaks:
         most_prominent = np.argsort(-prominence[survivors], kind="stable")[:max_peaks]
         survivors = np.sort(survivors[most_prominent])
+    _finish_widths(
+        level, index, bridge_points, survivors, width_done, left_position, right_position
+    )
+    # Both ends in one pass: [right positions, left positions].
+    ends_hz = _fractional_frequency(
+        frequency_hz, np.concatenate((right_position[survivors], left_position[survivors]))
+    )
+    width_hz = ends_hz[: survivors.size] - ends_hz[survivors.size :]
 
     # Python floats by tolist (the same values as float() of each element),
     # the fields in Peak's order.
@@ -851,7 +911,7 @@ def find_peaks(
             peak_frequency[survivors].tolist(),
             peak_level[survivors].tolist(),
             prominence[survivors].tolist(),
-            width_hz[survivors].tolist(),
+            width_hz.tolist(),
         )
     )
 

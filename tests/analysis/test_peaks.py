@@ -11,7 +11,12 @@ from hypothesis import strategies as st
 
 from analysis.errors import TraceError
 from analysis.fft import aggregate_rbw, amplitude_spectrum
-from analysis.peaks import detection_threshold_db, find_peaks, noise_floor, readings_at
+from analysis.peaks import (
+    detection_threshold_db,
+    find_peaks,
+    noise_floor,
+    readings_at,
+)
 from analysis.types import Spectrum, TimeRecord
 
 FLOOR_DB = 20.0
@@ -190,6 +195,27 @@ def test_widths_of_clean_peaks_match_scipy_peak_widths():
     # worked example: the plateau's edges fall 40 → 10 dB in one step, so the
     # 34 dB crossings lie 0.2 step outside its 160 points: 159.4 steps
     assert peaks[-1].width_hz == pytest.approx(159.4e3)
+
+
+@pytest.mark.parametrize("from_fft", [False, True])
+def test_a_plateau_of_deep_dipped_maxima_gives_a_few_peaks_as_wide_as_the_plateau(from_fft):
+    # worked example: the upper half alternates 60 / 20 dB point by point, one
+    # −6 dB run (its 1-point dips bridged) from its first 60 dB point to the
+    # end. 25,000 maxima merge into a few kept peaks (maxima two steps apart
+    # merge); each kept peak's width is that whole run, to the last point,
+    # with its left edge 0.15 step outside the first 60 dB point (20 → 60 dB
+    # in one step crosses 54 dB at (54 − 20)/40 = 0.85 of the step).
+    n = 100_000
+    f = np.linspace(1e5, 1e9, n)
+    level = np.full(n, 20.0)
+    level[n // 2 + 1 :: 2] = 60.0
+    peaks = find_peaks(Spectrum(f, level, "dBuV", from_fft=from_fft))
+    step = f[1] - f[0]
+    expected_width = f[-1] - f[n // 2 + 1] + 0.15 * step
+    assert 1 <= len(peaks) <= 10
+    for peak in peaks:
+        assert peak.level == 60.0
+        assert peak.width_hz == pytest.approx(expected_width, rel=1e-9)
 
 
 # --- merging and capping ---------------------------------------------------------------
