@@ -12,6 +12,8 @@ from hypothesis import strategies as st
 from analysis.errors import TraceError
 from analysis.fft import aggregate_rbw, amplitude_spectrum
 from analysis.peaks import (
+    _SCIPY_PROMINENCE_MAXIMA,
+    _prominences,
     detection_threshold_db,
     find_peaks,
     noise_floor,
@@ -195,6 +197,39 @@ def test_widths_of_clean_peaks_match_scipy_peak_widths():
     # worked example: the plateau's edges fall 40 → 10 dB in one step, so the
     # 34 dB crossings lie 0.2 step outside its 160 points: 159.4 steps
     assert peaks[-1].width_hz == pytest.approx(159.4e3)
+
+
+@st.composite
+def tied_levels(draw):
+    """Levels on a coarse grid (many equal maxima, plateaus, equal valleys)."""
+    n = draw(st.integers(3, 300))
+    values = draw(st.lists(st.integers(0, draw(st.integers(1, 6))), min_size=n, max_size=n))
+    return np.asarray(values, dtype=float) * draw(st.sampled_from([1.0, 0.5, 6.0]))
+
+
+@settings(max_examples=300, deadline=None)
+@given(tied_levels())
+def test_prominences_of_many_maxima_equal_scipys(level):
+    # reference: scipy.signal.peak_prominences, over every local maximum of
+    # scipy.signal.find_peaks (the input find_peaks gives _prominences)
+    maxima, _ = scipy.signal.find_peaks(level)
+    if maxima.size:
+        expected = scipy.signal.peak_prominences(level, maxima)[0]
+        np.testing.assert_array_equal(_prominences(level, maxima), expected)
+
+
+def test_thousands_of_equal_maxima_give_the_same_peaks_as_scipy_find_peaks():
+    # reference: scipy.signal.find_peaks(level, prominence=6). 2,500 maxima of
+    # one height (more than _SCIPY_PROMINENCE_MAXIMA, so _prominences decides),
+    # 8 points apart: none merges and each width is found in the first window
+    level = np.full(20_201, 10.0)
+    level[100:20_100:8] = 40.0
+    expected, _ = scipy.signal.find_peaks(level, prominence=6.0)
+    assert expected.size == 2_500 > _SCIPY_PROMINENCE_MAXIMA
+    f = np.linspace(1e6, 3e6, level.size)
+    peaks = find_peaks(Spectrum(f, level, "dBuV"), max_peaks=3_000)
+    np.testing.assert_array_equal(np.searchsorted(f, [p.frequency_hz for p in peaks]), expected)
+    assert {p.prominence_db for p in peaks} == {30.0}
 
 
 @pytest.mark.parametrize("from_fft", [False, True])
