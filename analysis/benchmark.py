@@ -158,10 +158,13 @@ def _repeats(size: int, quick: bool) -> int:
     if quick:
         return 3 if size < 1_000_000 else 2
     # Small sizes take milliseconds: many rounds cost nothing and find an
-    # undisturbed one; at 1e7 a round takes about a second.
+    # undisturbed one (on a shared machine 25 rounds of 1e4 points, 20 ms in
+    # all, can all fall in one slow spell); at 1e7 a round takes a second.
+    if size < 100_000:
+        return 200
     if size < 1_000_000:
-        return 25
-    return 9 if size < 10_000_000 else 3
+        return 50
+    return 15 if size < 10_000_000 else 3
 
 
 @dataclass(frozen=True)
