@@ -505,7 +505,6 @@ def _prominences(x: np.ndarray, maxima: np.ndarray) -> np.ndarray:
     starts[1:] = maxima
     valley = np.minimum.reduceat(x, starts)
     tallest = _sparse_table(height, np.maximum)
-    lowest = _sparse_table(valley, np.minimum)
     # Binary lifting: the longest run of maxima ≤ height[i] just left of i
     # ([first, i)) and just right of it ([i + 1, stop)).
     line = np.arange(k)
@@ -521,6 +520,9 @@ def _prominences(x: np.ndarray, maxima: np.ndarray) -> np.ndarray:
         fits = stop + step <= k
         fits[fits] = table[stop[fits]] <= height[fits]
         stop[fits] += step
+    # One table at a time: each holds about k·log2(k) values.
+    del tallest, table
+    lowest = _sparse_table(valley, np.minimum)
     left_base = _range_min(lowest, first, line)
     right_base = _range_min(lowest, line + 1, stop)
     return height - np.maximum(left_base, right_base)
