@@ -523,8 +523,8 @@ def _prominences(x: np.ndarray, maxima: np.ndarray) -> np.ndarray:
     # One table at a time: each holds about k·log2(k) values.
     del tallest, table
     lowest = _sparse_table(valley, np.minimum)
-    left_base = _range_min(lowest, first, line)
-    right_base = _range_min(lowest, line + 1, stop)
+    left_base = _range_query(lowest, np.minimum, first, line)
+    right_base = _range_query(lowest, np.minimum, line + 1, stop)
     return height - np.maximum(left_base, right_base)
 
 
@@ -538,14 +538,17 @@ def _sparse_table(values: np.ndarray, op: np.ufunc) -> list[np.ndarray]:
     return table
 
 
-def _range_min(table: list[np.ndarray], lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
-    """min(values[lo : hi + 1]) per pair (lo ≤ hi) from _sparse_table(values, np.minimum)."""
+def _range_query(
+    table: list[np.ndarray], op: np.ufunc, lo: np.ndarray, hi: np.ndarray
+) -> np.ndarray:
+    """op over values[lo : hi + 1] per pair (lo ≤ hi), from _sparse_table(values, op):
+    two overlapping power-of-two stretches, one pass per distinct power."""
     count = hi - lo + 1
     power = (np.frexp(count)[1] - 1).astype(np.intp)  # exact floor(log2(count))
     out = np.empty(lo.size)
     for p in np.unique(power):
         rows = power == p
-        out[rows] = np.minimum(table[p][lo[rows]], table[p][hi[rows] - (1 << int(p)) + 1])
+        out[rows] = op(table[p][lo[rows]], table[p][hi[rows] - (1 << int(p)) + 1])
     return out
 
 
@@ -1037,18 +1040,8 @@ def readings_at(spectrum: Spectrum, frequency_hz: ArrayLike, tolerance_hz: Array
     last = np.searchsorted(edges, hi) - 1  # inclusive stretch index
 
     # Sparse table: table[p][i] = max of stretches i … i + 2^p − 1.
-    table = [stretch_max]
-    while 2 ** len(table) <= stretch_max.size:
-        half = 2 ** (len(table) - 1)
-        previous = table[-1]
-        table.append(np.maximum(previous[:-half], previous[half:]))
-    count = last - first + 1
-    power = (np.frexp(count)[1] - 1).astype(np.intp)  # exact floor(log2(count))
-    span = 2**power
-    answer = np.empty(lo.size)
-    for p in np.unique(power):
-        rows = power == p
-        answer[rows] = np.maximum(table[p][first[rows]], table[p][last[rows] - span[rows] + 1])
+    table = _sparse_table(stretch_max, np.maximum)
+    answer = _range_query(table, np.maximum, first, last)
     flat = result.ravel()
     flat[hit] = answer
     return flat.reshape(query_hz.shape)
