@@ -338,8 +338,8 @@ def _best_comb(cells: np.ndarray, cell_order: np.ndarray, cols: int) -> tuple[np
     peak: a chance match far above the family would otherwise add a long run
     of holes. ``cells`` (ascending flat indices into the candidates × cols
     grid, at least one) and ``cell_order`` are _match's. Returns which cells
-    are kept and, for each candidate that has cells (ascending, the first
-    array), the score, the missing count, the highest kept order, whether the
+    are kept, the candidates that have cells (ascending) and, for each of
+    them, the score, the missing count, the highest kept order, whether the
     comb is odd-only and how many cells it keeps.
     """
     # A row's matches are a contiguous segment of the cells, so counts along
