@@ -22,6 +22,7 @@ Runs on CI's PostgreSQL + Redis pass (skipped on the SQLite one).
 
 from __future__ import annotations
 
+import signal
 import time
 from collections import defaultdict
 
@@ -187,3 +188,16 @@ def test_postgres_restarted_during_a_burst_loses_nothing(stack):
     by_key = _verdict(stack, burst, clients)
     refused = [a for tries in by_key.values() for a in tries if not a.accepted]
     assert any(a.status == 503 for a in refused), [(a.status, a.error) for a in refused]
+
+
+def test_a_worker_that_exits_by_itself_is_replaced(stack):
+    # As a service manager restarts a worker in production (README, "Production"): Celery 5.7
+    # workers can exit on an "Unrecoverable error" when Redis goes away under them.
+    live = [w for w in stack.workers if w.alive()]
+    assert live
+    restarted = stack.restarted
+    live[0].signal_group(signal.SIGKILL)  # not through kill_workers: the stack did not mean it
+    _stack._wait(lambda: stack.restarted == restarted + 1, 30, "the supervisor to start a worker")
+    stack.wait_workers()  # as many live workers as before answer a ping through the broker
+    assert sum(w.alive() for w in stack.workers) == len(live)
+    assert f"{live[0].name} exited" in (stack.root / "supervisor.log").read_text()

@@ -16,7 +16,11 @@ What it starts, each on a free loopback port chosen at start:
   shared cache the throttle counts in (db 2), as in production;
 - gunicorn (gthread) serving ``emicase.wsgi`` and ``celery worker`` processes, each in its own
   process group, with the production settings read from environment variables
-  (``DATABASE_URL``, ``CELERY_BROKER_URL``, ``EMICASE_CACHE_URL``, ``EMICASE_VAR_DIR`` ...).
+  (``DATABASE_URL``, ``CELERY_BROKER_URL``, ``EMICASE_CACHE_URL``, ``EMICASE_VAR_DIR`` ...);
+- a supervisor thread that starts a new worker when one exits by itself, as a service manager
+  does in production (README, "Production"): Celery 5.7 workers can exit on an "Unrecoverable
+  error" when Redis goes away while they hold an unacknowledged message. Workers stopped or
+  killed through the stack are not replaced (``kill_workers`` is the test's own fault).
 
 The developers' own PostgreSQL (5432) and Redis (6379) are never touched, let alone restarted.
 ``Stack(..., machine_postgres_url=..., machine_redis_url=...)`` uses existing servers instead
@@ -323,6 +327,9 @@ class Stack:
     machine_redis_url: str = ""
     database: str = "emicase"
     extra_env: dict = field(default_factory=dict)
+    # Replace a worker that exits by itself, at most this many times in the stack's life (a
+    # worker that cannot start at all must not be restarted for ever).
+    worker_restarts: int = 10
 
     def __post_init__(self) -> None:
         self.root = Path(self.root)
@@ -330,6 +337,12 @@ class Stack:
         self.redis = None if self.machine_redis_url else PrivateRedis(self.root / "redis")
         self.web: Process | None = None
         self.workers: list[Process] = []
+        # The workers the supervisor replaces when they exit (not those stopped on purpose).
+        self._supervised: set[Process] = set()
+        self._workers_lock = threading.RLock()
+        self._stopping = threading.Event()
+        self._supervisor: threading.Thread | None = None
+        self.restarted = 0
         self.web_port = 0
         self.env: dict = {}
         self._worker_serial = 0
@@ -385,6 +398,8 @@ class Stack:
         self.start_web(wait=False)
         for _ in range(self.celery_workers):
             self.start_worker()
+        self._supervisor = threading.Thread(target=self._supervise, name="stack-supervisor", daemon=True)
+        self._supervisor.start()
         # One Django process migrates, collects the static files (production settings serve
         # hashed names from a manifest), seeds the clients and pings the workers.
         self.seeded = self.module("prepare", str(clients), str(self.celery_workers), "90",
@@ -427,6 +442,11 @@ class Stack:
 
     def stop(self) -> None:
         """Stop every process this stack started (by id), then its servers."""
+        self._stopping.set()
+        if self._supervisor is not None:
+            self._supervisor.join(timeout=10)
+        with self._workers_lock:
+            self._supervised.clear()
         children = [*self.workers, *([self.web] if self.web is not None else [])]
         for child in children:  # all at once: each takes its own seconds to shut down warm
             if child.alive():
@@ -486,14 +506,31 @@ class Stack:
         client.close()
 
     def start_worker(self) -> Process:
-        self._worker_serial += 1
-        n = self._worker_serial
-        argv = [sys.executable, "-m", "celery", "-A", "emicase", "worker", "--loglevel", "INFO",
-                "--queues", "analysis,default", "--concurrency", str(self.concurrency),
-                "--without-mingle", "--without-gossip", "--hostname", f"stack{n}-{os.getpid()}@%h"]
-        worker = Process(f"celery worker {n}", argv, self.env, self.root / f"worker-{n}.log").start()
-        self.workers.append(worker)
-        return worker
+        with self._workers_lock:
+            self._worker_serial += 1
+            n = self._worker_serial
+            argv = [sys.executable, "-m", "celery", "-A", "emicase", "worker", "--loglevel", "INFO",
+                    "--queues", "analysis,default", "--concurrency", str(self.concurrency),
+                    "--without-mingle", "--without-gossip", "--hostname", f"stack{n}-{os.getpid()}@%h"]
+            worker = Process(f"celery worker {n}", argv, self.env, self.root / f"worker-{n}.log").start()
+            self.workers.append(worker)
+            self._supervised.add(worker)
+            return worker
+
+    def _supervise(self) -> None:
+        """Start a new worker for each supervised one that has exited (see the module docstring)."""
+        log = self.root / "supervisor.log"
+        while not self._stopping.wait(0.5):
+            with self._workers_lock:
+                for worker in [w for w in self._supervised if not w.alive()]:
+                    self._supervised.discard(worker)
+                    if self._stopping.is_set() or self.restarted >= self.worker_restarts:
+                        continue
+                    self.restarted += 1
+                    replacement = self.start_worker()
+                    with open(log, "a") as out:
+                        out.write(f"{time.strftime('%H:%M:%S')} {worker.name} exited with "
+                                  f"{worker.popen.returncode}; started {replacement.name}\n")
 
     def wait_workers(self, timeout: float = 90.0) -> None:
         """Until the live workers have answered a ping each through the broker (as many pings as workers)."""
@@ -501,9 +538,12 @@ class Stack:
         self.module("ping", str(live), str(int(timeout)), timeout=timeout + 30)
 
     def kill_workers(self) -> None:
-        for w in self.workers:
-            if w.alive():
-                w.kill()
+        """SIGKILL every worker; the supervisor does not replace them (the caller starts new ones)."""
+        with self._workers_lock:
+            self._supervised.clear()
+            for w in self.workers:
+                if w.alive():
+                    w.kill()
 
     def log_text(self) -> str:
         """Every log of the stack, for a failing test's message."""
